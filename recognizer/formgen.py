@@ -24,7 +24,7 @@ import cv2
 import numpy as np
 from PIL import Image
 
-from recognizer.handwriting import Writer
+from recognizer.handwriting import Writer, draw_junk
 
 MM_PER_INCH = 25.4
 LINE_MM = 0.3
@@ -201,7 +201,7 @@ def orchard_card() -> FormLayout:
         Logo(16, 13, 6.5),
         Text("Larkhollow Orchard Cooperative", 26, 12, 5.0, bold=True),
         Text("Harvest weigh-in card  -  one card per picking load", 26, 19, 2.6),
-        Text("Write one digit per box. Card no.", 150, 12, 2.2),
+        Text("Write one digit per box, in ink.", 148, 12.2, 2.4),
         Rect(140, 6, 56, 10),
         Text("D  D   M  M   Y   Y   Y  Y", 63, 41, 1.6),
         Text(".", 76.2, 98.4, 6.0, bold=True),
@@ -357,7 +357,8 @@ def mm_to_px(mm: float, dpi: int) -> float:
 
 def render_form(layout: FormLayout, values: dict[str, str], *, dpi: int = 300,
                 writer: Writer | None = None, digit_source: DigitSource | None = None,
-                rng: np.random.Generator, line_px: int | None = None) -> RenderedForm:
+                rng: np.random.Generator, line_px: int | None = None,
+                stray_marks: float = 0.0) -> RenderedForm:
     """Print ``layout`` at ``dpi`` and write ``values`` into its boxes.
 
     Parameters
@@ -376,6 +377,9 @@ def render_form(layout: FormLayout, values: dict[str, str], *, dpi: int = 300,
     rng : numpy.random.Generator
     line_px : int, optional
         Width of printed lines in pixels; default 0.3 mm at ``dpi``.
+    stray_marks : float
+        Probability that an empty box gets a stray dot, dash or smudge
+        (:func:`recognizer.handwriting.draw_junk`); its cell stays ''.
 
     Returns
     -------
@@ -411,6 +415,8 @@ def render_form(layout: FormLayout, values: dict[str, str], *, dpi: int = 300,
         for box, char in zip(boxes[spec.name], cells[spec.name]):
             if char:
                 _write_digit(handwriting, box, source(int(char), rng), darkness, rng)
+            elif rng.random() < stray_marks:
+                _write_junk(handwriting, box, darkness, rng)
     image = np.minimum(printed, handwriting)
     return RenderedForm(image, dpi, clean_values, boxes, cells, printed, handwriting, rules)
 
@@ -546,6 +552,14 @@ def _write_digit(layer: np.ndarray, box: Box, ink: np.ndarray, darkness: float,
     _paste_ink(layer, scaled, x0, y0, darkness)
 
 
+def _write_junk(layer: np.ndarray, box: Box, darkness: float, rng: np.random.Generator) -> None:
+    """Put a stray mark somewhere in ``box``."""
+    x0, y0, x1, y1 = (int(round(v)) for v in box)
+    junk = draw_junk(rng=rng, size=64)
+    _paste_ink(layer, cv2.resize(junk, (x1 - x0, y1 - y0), interpolation=cv2.INTER_AREA),
+               x0, y0, darkness)
+
+
 def _paste_ink(layer: np.ndarray, ink: np.ndarray, x0: int, y0: int, darkness: float) -> None:
     """Darken ``layer`` by ``ink`` (255 = full ink) placed with its top-left at (x0, y0)."""
     h, w = ink.shape
@@ -581,7 +595,7 @@ def scan_distort(form: RenderedForm, *, rng: np.random.Generator, skew_deg: floa
         Enlargement about the page centre (image size unchanged).
     noise : float
         0..1: gaussian noise of standard deviation ``12 * noise`` grey levels
-        plus ``0.1 % * noise`` salt-and-pepper pixels.
+        plus ``0.02 % * noise`` salt-and-pepper pixels.
     blur : float
         Gaussian blur sigma in pixels at 300 dpi (scaled with the dpi).
     lighting : float
@@ -652,7 +666,7 @@ def _light_and_noise(image: np.ndarray, lighting: float, noise: float,
         pixels *= cv2.resize(gain, (width, height), interpolation=cv2.INTER_LINEAR)
     if noise > 0:
         pixels += rng.standard_normal(pixels.shape, dtype=np.float32) * np.float32(12.0 * noise)
-        n_specks = int(rng.binomial(pixels.size, 0.001 * noise))
+        n_specks = int(rng.binomial(pixels.size, 0.0002 * noise))
         where = rng.integers(0, pixels.size, n_specks)
         pixels.reshape(-1)[where] = rng.choice(np.array([0.0, 255.0], np.float32), n_specks)
     np.add(pixels, 0.5, out=pixels)
@@ -715,7 +729,8 @@ def save_scan(image_or_pages: np.ndarray | Sequence[np.ndarray], path: str | Pat
         Stored in the file's metadata; for PDF each page measures
         ``pixels / dpi * 72`` points.
     quality : int
-        JPEG quality (also for the JPEG-coded pages inside a PDF).
+        JPEG quality (also for the JPEG-coded pages inside a PDF).  PDFs carry
+        no dates, so saving the same pages again gives the same bytes.
     """
     path = Path(path)
     fmt = _PIL_FORMATS.get(path.suffix.lower())
@@ -729,7 +744,9 @@ def save_scan(image_or_pages: np.ndarray | Sequence[np.ndarray], path: str | Pat
     images = [Image.fromarray(np.asarray(p, np.uint8), mode="L") for p in pages]
     options: dict[str, object] = {}
     if fmt == "PDF":
-        options = {"resolution": float(dpi), "quality": quality}
+        # no creation/modification dates, so that the same pages give the same file
+        options = {"resolution": float(dpi), "quality": quality, "creationDate": None,
+                   "modDate": None, "creator": "Inkcount"}
     elif fmt == "JPEG":
         options = {"dpi": (dpi, dpi), "quality": quality, "optimize": True}
     elif fmt == "TIFF":

@@ -156,7 +156,7 @@ class Writer:
         """An ordinary writer with a random style drawn from ``rng``."""
         return cls(
             slant_deg=float(np.clip(rng.normal(5.0, 7.0), -12.0, 22.0)),
-            stroke_width=float(rng.uniform(0.065, 0.13)),
+            stroke_width=float(rng.uniform(0.08, 0.13)),
             open_four=bool(rng.random() < 0.35),
             crossed_seven=bool(rng.random() < 0.15),
             serif_one=bool(rng.random() < 0.4),
@@ -206,8 +206,7 @@ class Writer:
         width = height * self.aspect * (1.0 + self.aspect_jitter * rng.standard_normal())
         slant = np.tan(np.radians(self.slant_deg + 2.0 * rng.standard_normal()))
         pen = self.stroke_width * height * float(np.clip(1.0 + 0.12 * rng.standard_normal(), 0.7, 1.3))
-        scale = _OVERSAMPLE
-        canvas = np.zeros((size * scale, size * scale), np.uint8)
+        paths = []
         for k, stroke in enumerate(strokes):
             points = np.asarray(stroke, float)
             points = points + self._offsets[digit, which, k, : len(points)]
@@ -215,8 +214,14 @@ class Writer:
             path = _wobble(_catmull_rom(points), self.wobble, rng)
             x = (path[:, 0] - 0.5) * width + slant * (0.5 - path[:, 1]) * height
             y = (path[:, 1] - 0.5) * height
-            _ink_path(canvas, np.column_stack([x, y]) * scale + size * scale / 2.0,
-                      pen * scale, rng)
+            paths.append(np.column_stack([x, y]))
+        # keep the whole glyph, pen width included, inside the image
+        reach = max(np.abs(np.vstack(paths)).max() + 0.75 * pen, 1e-6)
+        fit = min(1.0, (size / 2.0 - 1.0) / reach)
+        canvas = np.zeros((size * _OVERSAMPLE, size * _OVERSAMPLE), np.uint8)
+        for path in paths:
+            _ink_path(canvas, (path * fit + size / 2.0) * _OVERSAMPLE,
+                      pen * fit * _OVERSAMPLE, rng)
         return cv2.resize(canvas, (size, size), interpolation=cv2.INTER_AREA)
 
     def _allograph_index(self, digit: int) -> int:
@@ -273,3 +278,46 @@ def _ink_path(canvas: np.ndarray, path: np.ndarray, width: float,
     radii = np.maximum(1.0, 0.5 * width * pressure)
     for x, y, r in zip(xs, ys, radii):
         cv2.circle(canvas, (int(round(x)), int(round(y))), int(round(r)), 255, -1, cv2.LINE_8)
+
+
+JUNK_KINDS = ("dot", "dash", "smudge")
+"""Stray marks that leave a box blank: a pen dot, a short dash, a faint smudge."""
+
+
+def draw_junk(*, rng: np.random.Generator, size: int = 64, kind: str | None = None) -> np.ndarray:
+    """Draw a small stray mark somewhere in a box-sized image.
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator
+    size : int
+        Side of the square output, standing for a whole box.
+    kind : str, optional
+        One of :data:`JUNK_KINDS`; random if omitted.
+
+    Returns
+    -------
+    numpy.ndarray
+        (size, size) uint8, ink = 255 on 0.  The mark covers well under 2 %
+        of the image: a box holding only such a mark counts as empty.
+    """
+    kind = kind or str(rng.choice(JUNK_KINDS))
+    if kind not in JUNK_KINDS:
+        raise ValueError(f"unknown junk kind {kind!r}; expected one of {JUNK_KINDS}")
+    big = size * _OVERSAMPLE
+    canvas = np.zeros((big, big), np.uint8)
+    centre = rng.uniform(0.15, 0.85, 2) * big
+    if kind == "dot":
+        radius = rng.uniform(0.02, 0.045) * big
+        cv2.circle(canvas, tuple(int(c) for c in centre), int(radius), 255, -1)
+    elif kind == "dash":
+        angle = rng.uniform(0.0, np.pi)
+        half = rng.uniform(0.04, 0.1) * big * np.array([np.cos(angle), np.sin(angle)])
+        path = np.vstack([centre - half, centre + half])
+        _ink_path(canvas, path, rng.uniform(0.02, 0.04) * big, rng)
+    else:
+        axes = (int(rng.uniform(0.04, 0.09) * big), int(rng.uniform(0.02, 0.05) * big))
+        cv2.ellipse(canvas, tuple(int(c) for c in centre), axes, rng.uniform(0, 180), 0, 360,
+                    int(rng.uniform(50, 110)), -1)
+        canvas = cv2.GaussianBlur(canvas, (0, 0), 0.02 * big)
+    return cv2.resize(canvas, (size, size), interpolation=cv2.INTER_AREA)
