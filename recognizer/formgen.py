@@ -18,6 +18,7 @@ from __future__ import annotations
 import datetime as dt
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
+from functools import partial
 from pathlib import Path
 
 import cv2
@@ -183,7 +184,8 @@ def orchard_card() -> FormLayout:
     DDMMYYYY), ``block_number`` (2), ``row_number`` (3), ``crates_1`` ..
     ``crates_3`` (3 each, one per variety in :data:`ORCHARD_VARIETIES`),
     ``total_crates`` (3), ``net_weight_kg`` (4, whole kilograms) and
-    ``net_weight_tenths`` (1 box after a printed decimal point).
+    ``net_weight_tenths`` (1 box after a printed decimal point, one box width
+    away, so that it reads as a field of its own).
     """
     fields = (
         FieldSpec("grower_number", "Grower no.", 5, 14, 30),
@@ -195,7 +197,7 @@ def orchard_card() -> FormLayout:
         FieldSpec("crates_3", f"Crates {ORCHARD_VARIETIES[2]}", 3, 90, 70),
         FieldSpec("total_crates", "Total crates", 3, 14, 90),
         FieldSpec("net_weight_kg", "Net weight (kg)", 4, 52, 90),
-        FieldSpec("net_weight_tenths", "", 1, 79, 90),
+        FieldSpec("net_weight_tenths", "", 1, 82, 90),
     )
     furniture: tuple[Furniture, ...] = (
         Logo(16, 13, 6.5),
@@ -204,7 +206,7 @@ def orchard_card() -> FormLayout:
         Text("Write one digit per box, in ink.", 148, 12.2, 2.4),
         Rect(140, 6, 56, 10),
         Text("D  D   M  M   Y   Y   Y  Y", 63, 41, 1.6),
-        Text(".", 76.2, 98.4, 6.0, bold=True),
+        Text(".", 78.2, 98.4, 6.0, bold=True),
         Text("Remarks", 122, 48, 2.6),
         Rect(122, 50, 76, 48),
         Text("Quality class (tick one)", 14, 108, 2.4),
@@ -366,7 +368,8 @@ def render_form(layout: FormLayout, values: dict[str, str], *, dpi: int = 300,
     layout : FormLayout
     values : dict
         Field name -> digit string, at most ``n_boxes`` long, written
-        right-aligned (leading boxes stay empty); missing names are blank.
+        right-aligned (leading boxes stay empty); missing names are blank,
+        names the layout lacks are refused (ValueError).
     dpi : int
         Resolution, 150..600 sensible.
     writer : Writer, optional
@@ -404,11 +407,14 @@ def render_form(layout: FormLayout, values: dict[str, str], *, dpi: int = 300,
     source = digit_source or _writer_source(writer)
     handwriting = np.full_like(printed, 255)
     darkness = float(rng.uniform(0.8, 1.0))
+    unknown = set(values) - set(boxes)
+    if unknown:
+        raise ValueError(f"no fields {sorted(unknown)} in layout {layout.name!r}")
     cells: dict[str, list[str]] = {}
     clean_values: dict[str, str] = {}
     for spec in layout.fields:
         text = values.get(spec.name, "")
-        if len(text) > spec.n_boxes or not text.isdigit() and text:
+        if len(text) > spec.n_boxes or text and not (text.isascii() and text.isdigit()):
             raise ValueError(f"value {text!r} does not fit field {spec.name!r}")
         clean_values[spec.name] = text
         cells[spec.name] = [""] * (spec.n_boxes - len(text)) + list(text)
@@ -458,7 +464,7 @@ def _rect(page: np.ndarray, rules: np.ndarray, x0: float, y0: float, x1: float, 
 def _draw_field(page: np.ndarray, rules: np.ndarray, spec: FieldSpec, dpi: int,
                 w: int) -> list[Box]:
     """Draw the walls of a field's boxes; return their inner rectangles in px."""
-    px = lambda mm: mm_to_px(mm, dpi)  # noqa: E731
+    px = partial(mm_to_px, dpi=dpi)
     y0, y1 = px(spec.y_mm), px(spec.y_mm + spec.height_mm)
     lefts = [spec.x_mm + i * (spec.box_mm + spec.gap_mm) for i in range(spec.n_boxes)]
     if spec.gap_mm == 0:
@@ -476,7 +482,7 @@ def _draw_field(page: np.ndarray, rules: np.ndarray, spec: FieldSpec, dpi: int,
 def _draw_furniture(page: np.ndarray, rules: np.ndarray, item: Furniture, dpi: int,
                     w: int) -> None:
     """Print one piece of non-digit furniture."""
-    px = lambda mm: mm_to_px(mm, dpi)  # noqa: E731
+    px = partial(mm_to_px, dpi=dpi)
     if isinstance(item, Text):
         _put_text(page, item.text, item.x_mm, item.y_mm, item.height_mm, dpi, item.bold)
     elif isinstance(item, Rect):

@@ -16,6 +16,7 @@ allograph of 1, 4 and 7 is used, and a personal offset of every control point
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import cv2
 import numpy as np
@@ -102,9 +103,21 @@ _GLYPHS: dict[int, tuple[Allograph, ...]] = {
 
 _N_POINTS = max(len(s) for glyphs in _GLYPHS.values() for a in glyphs for s in a)
 _N_STROKES = max(len(a) for glyphs in _GLYPHS.values() for a in glyphs)
+_N_ALLOGRAPHS = max(len(glyphs) for glyphs in _GLYPHS.values())
 
 
-@dataclass
+@lru_cache(maxsize=64)
+def _personal_style(seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """A writer's fixed control-point offsets and allograph preferences, from ``seed``."""
+    personal = np.random.default_rng(seed)
+    offsets = personal.normal(0.0, 0.03, (10, _N_ALLOGRAPHS, _N_STROKES, _N_POINTS, 2))
+    offsets.flags.writeable = False
+    preference = personal.integers(0, 2, 10)
+    preference.flags.writeable = False
+    return offsets, preference
+
+
+@dataclass(frozen=True)
 class Writer:
     """Handwriting style of one person.
 
@@ -145,11 +158,6 @@ class Writer:
     shape_jitter: float = 0.025
     wobble: float = 0.012
     seed: int = 0
-
-    def __post_init__(self) -> None:
-        personal = np.random.default_rng(self.seed)
-        self._offsets = personal.normal(0.0, 0.03, (10, 3, _N_STROKES, _N_POINTS, 2))
-        self._alt = personal.integers(0, 2, 10)  # allograph preference of the free digits
 
     @classmethod
     def random(cls, rng: np.random.Generator) -> Writer:
@@ -200,6 +208,7 @@ class Writer:
         """
         if not 0 <= digit <= 9:
             raise ValueError(f"digit must be 0..9, got {digit!r}")
+        offsets, _ = _personal_style(self.seed)
         which = self._allograph_index(digit)
         strokes = _GLYPHS[digit][which]
         height = 0.75 * size * (1.0 + self.size_jitter * rng.standard_normal())
@@ -209,7 +218,7 @@ class Writer:
         paths = []
         for k, stroke in enumerate(strokes):
             points = np.asarray(stroke, float)
-            points = points + self._offsets[digit, which, k, : len(points)]
+            points = points + offsets[digit, which, k, : len(points)]
             points = points + rng.normal(0.0, self.shape_jitter, points.shape)
             path = _wobble(_catmull_rom(points), self.wobble, rng)
             x = (path[:, 0] - 0.5) * width + slant * (0.5 - path[:, 1]) * height
@@ -226,13 +235,14 @@ class Writer:
 
     def _allograph_index(self, digit: int) -> int:
         """Which allograph of ``digit`` this writer uses."""
+        preference = _personal_style(self.seed)[1]
         if digit == 1:
-            return 1 + int(self._alt[1]) if self.serif_one else 0
+            return 1 + int(preference[1]) if self.serif_one else 0
         if digit == 4:
             return int(self.open_four)
         if digit == 7:
-            return 1 if self.crossed_seven else 2 * int(self._alt[7])
-        return int(self._alt[digit]) % len(_GLYPHS[digit])
+            return 1 if self.crossed_seven else 2 * int(preference[7])
+        return int(preference[digit]) % len(_GLYPHS[digit])
 
 
 def _catmull_rom(points: np.ndarray, per_segment: int = 12) -> np.ndarray:

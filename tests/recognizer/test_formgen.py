@@ -115,6 +115,8 @@ def test_rejects_values_that_do_not_fit():
         fg.render_form(CARD, {"block_number": "123"}, rng=np.random.default_rng(0))
     with pytest.raises(ValueError):
         fg.render_form(CARD, {"block_number": "1a"}, rng=np.random.default_rng(0))
+    with pytest.raises(ValueError):
+        fg.render_form(CARD, {"grower_nmuber": "00412"}, rng=np.random.default_rng(0))
 
 
 @pytest.mark.parametrize("seed", range(40))
