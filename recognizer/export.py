@@ -1,0 +1,120 @@
+"""CSV export: the values table (one row per page) and the digits table (one row per digit).
+
+Both files are RFC 4180 CSV (comma-separated, double-quote quoting, CRLF line
+ends) in UTF-8. Every value is written as text, so a grower number ``00412``
+keeps its leading zeros.
+
+Values table columns: ``file, page,`` one column per field (``f01, f02, ...``
+— every field seen on any page, so pages with fewer fields leave the extra
+columns empty), then ``to_check`` (the fields of the row a person should look
+at, separated by spaces) and ``problem`` (why a file or page could not be
+read; such rows have no values).
+
+Digits table columns: ``file, page, field, box`` (box numbered from 1, left to
+right), ``digit`` (``?`` for a mark read as "not a digit"), ``confidence``,
+``p0`` … ``p9`` (the probability of each digit) and ``p_not_digit``. Empty
+boxes have no row.
+"""
+
+from __future__ import annotations
+
+import csv
+import os
+from pathlib import Path
+from typing import TextIO
+
+from .reading import PageRead
+from .scan import ScanProblem
+
+__all__ = ["ValuesTable", "DigitsWriter", "field_sort_key", "open_csv"]
+
+
+def open_csv(path: str | os.PathLike) -> TextIO:
+    """Open ``path`` for writing CSV the way RFC 4180 wants it."""
+    return open(path, "w", newline="", encoding="utf-8")
+
+
+def _writer(fh: TextIO):
+    return csv.writer(fh, lineterminator="\r\n", quoting=csv.QUOTE_MINIMAL)
+
+
+def field_sort_key(name: str) -> tuple[int, str]:
+    """Sort ``f2`` before ``f10`` and named fields after numbered ones."""
+    digits = name[1:] if name[:1] == "f" else ""
+    return (int(digits), "") if digits.isdigit() else (10**9, name)
+
+
+class ValuesTable:
+    """Collects one row per page and writes the values CSV at the end.
+
+    The rows are kept (they are short strings) because the header needs
+    every field name of every page before the first row is written.
+    """
+
+    def __init__(self) -> None:
+        self.rows: list[tuple[str, str, dict[str, str], list[str], str]] = []
+        self.fields: set[str] = set()
+
+    def add_page(self, page: PageRead, *, threshold: float) -> None:
+        if not page:
+            self.rows.append((str(page.source), str(page.page), {}, [], page.problem or ""))
+            return
+        values = {f.name: f.value for f in page.fields}
+        self.fields.update(values)
+        check = [f.name for f in page.fields if page.warnings or f.to_check(threshold)]
+        self.rows.append((str(page.source), str(page.page), values, check, ""))
+
+    def add_problem(self, problem: ScanProblem) -> None:
+        page = "" if problem.page is None else str(problem.page)
+        self.rows.append((str(problem.source), page, {}, [], problem.reason))
+
+    def header(self) -> list[str]:
+        return ["file", "page", *sorted(self.fields, key=field_sort_key), "to_check", "problem"]
+
+    def write(self, path: str | os.PathLike) -> None:
+        names = sorted(self.fields, key=field_sort_key)
+        with open_csv(path) as fh:
+            w = _writer(fh)
+            w.writerow(self.header())
+            for file, page, values, check, problem in self.rows:
+                w.writerow([file, page, *(values.get(n, "") for n in names), " ".join(check), problem])
+
+
+DIGIT_COLUMNS = (
+    ["file", "page", "field", "box", "digit", "confidence"]
+    + [f"p{d}" for d in range(10)]
+    + ["p_not_digit"]
+)
+
+
+class DigitsWriter:
+    """Streams one row per written digit to a CSV file.
+
+    Use as a context manager::
+
+        with DigitsWriter(path) as out:
+            out.add_page(page_read)
+    """
+
+    def __init__(self, path: str | os.PathLike):
+        self.path = Path(path)
+        self._fh: TextIO | None = None
+
+    def __enter__(self) -> DigitsWriter:
+        self._fh = open_csv(self.path)
+        self._w = _writer(self._fh)
+        self._w.writerow(DIGIT_COLUMNS)
+        return self
+
+    def __exit__(self, *exc) -> None:
+        assert self._fh is not None
+        self._fh.close()
+
+    def add_page(self, page: PageRead) -> None:
+        for f in page.fields:
+            for d in f.written:
+                assert d.probs is not None
+                self._w.writerow(
+                    [str(page.source), page.page, f.name, d.box + 1, d.text, f"{d.confidence:.4f}"]
+                    + [f"{p:.4f}" for p in d.probs]
+                )
