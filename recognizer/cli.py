@@ -13,6 +13,7 @@ from __future__ import annotations
 import argparse
 import sys
 from contextlib import ExitStack
+from importlib.metadata import entry_points
 from pathlib import Path
 
 from . import __version__
@@ -22,7 +23,12 @@ from .model import ModelFileError, load_model
 from .pipeline import ReadSettings, read_scans
 from .scan import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, ScanProblem, count_pages, list_scans
 
-__all__ = ["main", "build_parser"]
+__all__ = ["main", "build_parser", "COMMANDS_GROUP"]
+
+#: Entry-point group through which other packages add sub-commands: each entry
+#: is a function ``(subparsers) -> None``. The desktop window (``app``) adds
+#: ``inkcount window`` this way, so this library never imports Qt.
+COMMANDS_GROUP = "inkcount.commands"
 
 CAUTION = (
     "Automatic reading makes mistakes: review every value marked to check before "
@@ -41,6 +47,8 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     _add_read_command(sub)
     add_model_commands(sub)
+    for entry in entry_points(group=COMMANDS_GROUP):
+        entry.load()(sub)
     return parser
 
 
