@@ -37,12 +37,14 @@ Tables (version 1)
 ``inkcount_meta(key, value)``; ``settings(key, value JSON)`` (threshold,
 target residual error, threshold source, model path and version, PDF
 resolution); ``files(path, sha256, size, added, complete)``; ``pages(file,
-page, dpi, skew_deg, image_png, problem, warnings JSON, layout JSON,
-odd_layout, read_at)`` — a row with ``page`` NULL is a problem with the
-whole file; ``fields(page, position, name, boxes JSON, read_value, gap, value,
-whole, resolution, state)``; ``digits(field, box, blank, crop_png, probs,
-prediction, confidence, model_version, value, state)`` — one row per box,
-empty ones included; ``actions(time, reviewer, kind, field, digit, old_value,
+page, dpi, skew_deg, problem, warnings JSON, layout JSON, odd_layout,
+read_at)`` — a row with ``page`` NULL is a problem with the whole file;
+``page_images(page, png)`` (apart, so that queries on pages never wade
+through megabytes of image); ``fields(page, position, name, boxes JSON,
+read_value, gap, value, whole, resolution, state)``; ``digits(field, box,
+blank, prediction, confidence, model_version, value, state, probs,
+crop_png)`` — one row per box, empty ones included, the blobs last for the
+same reason; ``actions(time, reviewer, kind, field, digit, old_value,
 new_value, before JSON, undoes, undone_by)``. The meaning of the states and
 of ``value``/``whole``/``resolution`` is in :mod:`recognizer.review`.
 
@@ -166,13 +168,16 @@ def _schema_v1(conn: sqlite3.Connection) -> None:
             page INTEGER,
             dpi REAL,
             skew_deg REAL,
-            image_png BLOB,
             problem TEXT,
             warnings TEXT NOT NULL DEFAULT '[]',
             layout TEXT,
             odd_layout INTEGER NOT NULL DEFAULT 0,
             read_at TEXT NOT NULL,
             UNIQUE (file_id, page)
+        );
+        CREATE TABLE page_images (
+            page_id INTEGER PRIMARY KEY REFERENCES pages(id),
+            png BLOB NOT NULL
         );
         CREATE TABLE fields (
             id INTEGER PRIMARY KEY,
@@ -194,16 +199,15 @@ def _schema_v1(conn: sqlite3.Connection) -> None:
             field_id INTEGER NOT NULL REFERENCES fields(id),
             box INTEGER NOT NULL,
             blank INTEGER NOT NULL,
-            crop_png BLOB NOT NULL,
-            probs BLOB,
             prediction TEXT NOT NULL,
             confidence REAL NOT NULL,
             model_version TEXT,
             value TEXT,
             state TEXT NOT NULL,
+            probs BLOB,
+            crop_png BLOB NOT NULL,
             UNIQUE (field_id, box)
         );
-        CREATE INDEX digits_by_state ON digits(state);
         CREATE TABLE actions (
             id INTEGER PRIMARY KEY,
             time TEXT NOT NULL,
@@ -569,10 +573,10 @@ class Batch:
 
     def page_image(self, page_id: int) -> np.ndarray | None:
         """The deskewed page, (M, N) uint8, or None for a page that could not be read."""
-        rows = self.rows("SELECT image_png FROM pages WHERE id = ?", (page_id,))
-        if not rows:
+        if not self.rows("SELECT 1 FROM pages WHERE id = ?", (page_id,)):
             raise KeyError(f"no page {page_id}")
-        return None if rows[0][0] is None else decode_png(rows[0][0])
+        rows = self.rows("SELECT png FROM page_images WHERE page_id = ?", (page_id,))
+        return decode_png(rows[0][0]) if rows else None
 
     def digit_crop(self, digit_id: int) -> np.ndarray:
         """The crop of one box as read, (h, w) uint8, 0 = ink."""
@@ -700,15 +704,16 @@ def _insert_problem(conn: sqlite3.Connection, file_id: int, problem: ScanProblem
 def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_version: str | None) -> int:
     layout = None if page.problem else json.dumps([[f.name, len(f.boxes)] for f in page.fields])
     cur = conn.execute(
-        "INSERT INTO pages (file_id, page, dpi, skew_deg, image_png, problem, warnings, layout, read_at) "
-        "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        "INSERT INTO pages (file_id, page, dpi, skew_deg, problem, warnings, layout, read_at) "
+        "VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
         (
             file_id, page.page, float(page.dpi), float(page.skew_deg),
-            None if page.image is None else encode_png(page.image),
             page.problem, json.dumps(list(page.warnings)), layout, timestamp(),
         ),
     )
     page_id = int(cur.lastrowid)
+    if page.image is not None:
+        conn.execute("INSERT INTO page_images (page_id, png) VALUES (?, ?)", (page_id, encode_png(page.image)))
     for position, f in enumerate(page.fields):
         boxes = json.dumps([[int(b.x0), int(b.y0), int(b.x1), int(b.y1)] for b in f.boxes])
         cur = conn.execute(
@@ -718,13 +723,13 @@ def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_v
         )
         field_id = int(cur.lastrowid)
         conn.executemany(
-            "INSERT INTO digits (field_id, box, blank, crop_png, probs, prediction, confidence, "
-            "model_version, value, state) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            "INSERT INTO digits (field_id, box, blank, prediction, confidence, model_version, value, state, "
+            "probs, crop_png) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             [
                 (
-                    field_id, d.box, int(d.blank), encode_png(d.crop),
-                    None if d.probs is None else np.asarray(d.probs, "<f4").tobytes(),
-                    d.text, float(d.confidence), None if d.blank else model_version, d.text, READ,
+                    field_id, d.box, int(d.blank), d.text, float(d.confidence),
+                    None if d.blank else model_version, d.text, READ,
+                    None if d.probs is None else np.asarray(d.probs, "<f4").tobytes(), encode_png(d.crop),
                 )
                 for d in f.digits
             ],

@@ -367,9 +367,10 @@ def test_problems_are_stored_as_pages_without_fields(tmp_path):
         file_id = batch.add_file("a.pdf", "x", 10)
         batch.add_result(file_id, ScanProblem(Path("a.pdf"), 2, "page cannot be drawn"), model_version=None)
         batch.add_result(file_id, make_page("a.pdf", 3, {}, problem="no digit boxes found"), model_version=None)
-        rows = batch.rows("SELECT page, problem, image_png FROM pages ORDER BY page")
+        rows = batch.rows("SELECT id, page, problem FROM pages ORDER BY page")
         assert [(r["page"], r["problem"]) for r in rows] == [(2, "page cannot be drawn"), (3, "no digit boxes found")]
         assert batch.rows("SELECT COUNT(*) FROM fields")[0][0] == 0
+        assert batch.page_image(rows[0]["id"]) is None and batch.page_image(rows[1]["id"]).shape == (100, 100)
 
 
 def test_png_round_trip_is_lossless():
