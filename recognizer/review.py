@@ -615,13 +615,7 @@ def set_field(batch: Batch, field_id: int, value: str, *, reviewer: str | None =
             conn.execute("UPDATE fields SET whole = 1, value = ?, resolution = ? WHERE id = ?",
                          (value, CORRECTED, field_id))
 
-    _require_field(batch, field_id)
     return _field_action(batch, "set field", field_id, reviewer, change)
-
-
-def _require_field(batch: Batch, field_id: int) -> None:
-    if not batch.rows("SELECT 1 FROM fields WHERE id = ?", (field_id,)):
-        raise ReviewError(f"no field {field_id} in this batch")
 
 
 def _one_target(field: int | None, digit: int | None) -> None:
@@ -658,7 +652,6 @@ def confirm(batch: Batch, *, field: int | None = None, digit: int | None = None,
             (CORRECTED, CORRECTED, CONFIRMED, field),
         )
 
-    _require_field(batch, field)
     return _field_action(batch, "confirm field", field, reviewer, change_field)
 
 
@@ -673,7 +666,6 @@ def mark_unreadable(batch: Batch, *, field: int | None = None, digit: int | None
             lambda conn: conn.execute("UPDATE digits SET state = ? WHERE id = ?", (UNREADABLE, digit)),
             digit_id=digit, old=row["value"], new=row["value"],
         )
-    _require_field(batch, field)
     return _field_action(
         batch, "unreadable field", field, reviewer,
         lambda conn: conn.execute("UPDATE fields SET resolution = ? WHERE id = ?", (UNREADABLE, field)),

@@ -497,3 +497,14 @@ def test_commands_report_unusable_batch_files(tmp_path, capsys):
     for command in ("review", "status"):
         assert run(command, str(path)) == 2
         assert "not an SQLite database" in capsys.readouterr().err
+
+
+def test_actions_on_unknown_ids_are_refused(batch):
+    add_page(batch, "a.png")
+    with pytest.raises(ReviewError, match="no field 999"):
+        set_field(batch, 999, "1")
+    with pytest.raises(ReviewError, match="no field 999"):
+        confirm(batch, field=999)
+    with pytest.raises(ReviewError, match="no digit 999"):
+        set_digit(batch, 999, "1")
+    assert actions(batch) == []
