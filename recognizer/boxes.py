@@ -78,20 +78,22 @@ _WORK_DPI = 300.0          # boxes are searched at no more than this resolution
 _SKEW_PX_PER_MM = 4.0      # resolution of the skew search (about 100 dpi)
 _LIGHT_PX_PER_MM = 1.0     # grid of the paper-level estimate
 _LIGHT_WINDOW_MM = 5.0     # grey closing window of the paper-level estimate
-_JOIN_MM = 2.0             # gaps between collinear horizontal runs joined
+_JOIN_MM = 2.0             # gaps between straight horizontal runs joined
 _BAND_MARGIN_MM = 0.25     # rows beside each line left out of the wall test
 _WALL_COVER = 0.9          # ink share of a column between two lines that makes a wall
 _BROKEN_WALL_COVER = 0.55  # ... or that makes a broken wall reaching both lines
 _MAX_WALL_MM = 1.2         # a wall or line is at most this thick
 _MAX_INK = 0.5             # a box region is mostly paper
-_LINE_FRACTION = 0.6       # opening length as a fraction of min_box_mm
+_CROSSING = 0.9            # a line this long between two lines splits their band
+_LINE_FRACTION = 0.35      # opening length as a fraction of min_box_mm
 _ASPECT = (0.7, 2.2)       # height / width of a digit box
 _ALIGN = 0.12              # tops and bottoms agree within this part of the height
 _MAX_GAP = 0.42            # neighbours' gap under this part of the box height
 _GAP_STEP = 0.17           # a gap this much (part of box height) over the smallest splits
 _MISSING_GAP = 2.5         # farthest neighbour (box heights) joined by running lines
-_RULED = 0.5               # share of a box's top and bottom edge that must be ink
-_LINES_RUN_ON = 0.8        # share of a gap the top and bottom lines must cover to run on
+_RULED = 0.5               # share of a region's top and bottom edge that lines must cover
+_FIELD_RULED = 0.7         # ... and of a whole field's top and bottom edge
+_LINES_RUN_ON = 0.3        # share of a gap line traces must cover to join two regions
 _MAX_EXTEND = 2            # boxes added at most at each end of a field
 _LINE_BAND_MM = 0.6        # band beside a region searched for its top or bottom line
 _SAME_WIDTH = 0.1          # boxes of one field agree in width within this part
@@ -434,11 +436,11 @@ def _segments(lines: np.ndarray, min_len: float) -> list[_Rect]:
 
 
 def _merge_collinear(segments: list[_Rect], tol: int, max_gap: float) -> list[_Rect]:
-    """Join segments on one row (edges within ``tol``) less than ``max_gap`` apart: a broken line."""
+    """Join segments on one row (centres within ``tol``) less than ``max_gap`` apart: a broken line."""
     out: list[_Rect] = []
     for seg in sorted(segments, key=lambda r: (r.y0, r.x0)):
         for k, line in enumerate(out):
-            if (abs(line.y0 - seg.y0) <= tol and abs(line.y1 - seg.y1) <= tol
+            if (abs(line.y0 + line.y1 - seg.y0 - seg.y1) <= 2 * tol
                     and seg.x0 - line.x1 <= max_gap and line.x0 - seg.x1 <= max_gap):
                 out[k] = _Rect(min(line.x0, seg.x0), min(line.y0, seg.y0),
                                max(line.x1, seg.x1), max(line.y1, seg.y1))
@@ -458,17 +460,18 @@ def _cells(ink: np.ndarray, lines: np.ndarray, px_per_mm: float, min_box_mm: flo
     covers ``_WALL_COVER`` of the band's height (ignoring a thin margin at each
     line), or ``_BROKEN_WALL_COVER`` of it reaching both lines; the stretches
     between neighbouring walls are regions when they are mostly paper and the
-    lines run along most of their top and bottom edges.  A badly broken wall may be missed (two boxes run
-    together) and a straight stroke may pass for a wall (a box split in two);
-    fitting each field's row of boxes repairs both.
+    lines run along most of their top and bottom edges.  A badly broken wall
+    may be missed (two boxes run together) and a straight stroke may pass for
+    a wall (a box split in two); fitting each field's row of boxes repairs both.
     """
     lo, hi = 0.9 * min_box_mm * px_per_mm, max_box_mm * px_per_mm
     margin = max(1, int(round(_BAND_MARGIN_MM * px_per_mm)))
     band_px = max(2, int(round(_LINE_BAND_MM * px_per_mm)))
     max_wall = max(3, int(round(_MAX_WALL_MM * px_per_mm)))
-    segments = [r for r in _segments(lines, lo) if r.h <= max_wall]
-    segments = _merge_collinear(segments, max(1, int(round(0.15 * px_per_mm))),
+    segments = [r for r in _segments(lines, 0) if r.h <= max_wall]
+    segments = _merge_collinear(segments, max(1, int(round(0.3 * px_per_mm))),
                                 min_box_mm * px_per_mm)
+    segments = [r for r in segments if r.w >= lo]
     segments.sort(key=lambda r: r.y0)
     rects = set()
     for i, top in enumerate(segments):
@@ -477,19 +480,25 @@ def _cells(ink: np.ndarray, lines: np.ndarray, px_per_mm: float, min_box_mm: flo
             if height > hi:
                 break
             xa, xb = max(top.x0, bottom.x0), min(top.x1, bottom.x1)
-            if height < lo or xb - xa < lo:
+            if height < lo or xb - xa < lo or _crossed(segments, top, bottom, xa, xb):
                 continue
-            xa, xb = max(0, xa - band_px), min(ink.shape[1], xb + band_px)  # end walls
-            rows = slice(top.y1 + margin, bottom.y0 - margin)
-            if (lines[rows, xa:xb] > 0).mean(axis=1).max() >= 0.9:
-                continue  # another line runs between them
-            band = ink[rows, xa:xb] > 0
+            # the whole length of both lines (one may have lost its end), and the end walls
+            xa = max(0, min(top.x0, bottom.x0) - band_px)
+            xb = min(ink.shape[1], max(top.x1, bottom.x1) + band_px)
+            band = ink[top.y1 + margin:bottom.y0 - margin, xa:xb] > 0
             for x0, x1 in _between_walls(band, max_wall):
                 r = _Rect(xa + x0, top.y1, xa + x1, bottom.y0)
                 if band[:, x0:x1].mean() <= _MAX_INK and _ruled(
                         lines, r.x0, r.x1, r.y0, r.y1, band_px):
                     rects.add(r)
     return sorted(rects, key=lambda r: (r.y0, r.x0))
+
+
+def _crossed(segments: list[_Rect], top: _Rect, bottom: _Rect, xa: int, xb: int) -> bool:
+    """Whether another line runs between ``top`` and ``bottom`` over most of ``xa..xb``."""
+    return any(top.y1 <= s.y0 and s.y1 <= bottom.y0
+               and min(s.x1, xb) - max(s.x0, xa) >= _CROSSING * (xb - xa)
+               for s in segments)
 
 
 def _between_walls(band: np.ndarray, max_wall: int) -> list[tuple[int, int]]:
@@ -547,39 +556,33 @@ def _ruled(ink: np.ndarray, x0: int, x1: int, y0: int, y1: int, band: int,
     return min(top, bottom) >= share
 
 
-def _lines_continue(ink: np.ndarray, a: _Rect, b: _Rect, band: int) -> bool:
-    """Whether the top and the bottom line run on across the gap from ``a`` to ``b``."""
-    return _ruled(ink, a.x1, b.x0, min(a.y0, b.y0), max(a.y1, b.y1), band, _LINES_RUN_ON)
+def _lines_continue(lines: np.ndarray, a: _Rect, b: _Rect, band: int) -> bool:
+    """Whether traces of the top and the bottom line run across the gap from ``a`` to ``b``."""
+    return _ruled(lines, a.x1, b.x0, min(a.y0, b.y0), max(a.y1, b.y1), band, _LINES_RUN_ON)
 
 
-def _chains(rects: list[_Rect], ink: np.ndarray, band: int) -> list[list[_Rect]]:
-    """Link each region to its nearest aligned right neighbour.
+def _chains(rects: list[_Rect], lines: np.ndarray, band: int) -> list[list[_Rect]]:
+    """Link each region to its nearest aligned right neighbour, when close enough.
 
     The neighbour must be close (``_MAX_GAP`` of the height) or, up to
-    ``_MISSING_GAP`` heights away, joined to it by running top and bottom lines
-    (a box between them was lost).
+    ``_MISSING_GAP`` heights away, joined to it by traces of top and bottom
+    lines (boxes between them were lost).
     """
     order = sorted(rects, key=lambda r: r.x0)
     nxt: dict[int, int] = {}
-    taken: set[int] = set()
     for i, a in enumerate(order):
-        best, best_gap = None, None
-        for j in range(i + 1, len(order)):
-            b = order[j]
-            gap = b.x0 - a.x1
-            if gap > _MISSING_GAP * a.h:
-                break
-            if gap < -1 or not _aligned(a, b) or (best_gap is not None and gap >= best_gap):
-                continue
-            if gap <= _MAX_GAP * min(a.h, b.h) or _lines_continue(ink, a, b, band):
-                best, best_gap = j, gap
-        if best is not None and best not in taken:
-            nxt[i] = best
-            taken.add(best)
-    chains = []
-    for i in range(len(order)):
-        if i in taken:
+        right = [j for j in range(i + 1, len(order))
+                 if order[j].x0 >= a.x1 - 1 and _aligned(a, order[j])]
+        if not right:
             continue
+        j = min(right, key=lambda k: order[k].x0)
+        b = order[j]
+        gap = b.x0 - a.x1
+        if j not in nxt.values() and (gap <= _MAX_GAP * min(a.h, b.h) or (
+                gap <= _MISSING_GAP * a.h and _lines_continue(lines, a, b, band))):
+            nxt[i] = j
+    chains = []
+    for i in sorted(set(range(len(order))) - set(nxt.values())):
         chain = [order[i]]
         while i in nxt:
             i = nxt[i]
@@ -588,28 +591,33 @@ def _chains(rects: list[_Rect], ink: np.ndarray, band: int) -> list[list[_Rect]]
     return chains
 
 
-def _split_chain(chain: list[_Rect], ink: np.ndarray, band: int) -> list[list[_Rect]]:
-    """Split where a gap exceeds the median gap by ``_GAP_STEP`` heights and the lines stop."""
-    gaps = [b.x0 - a.x1 for a, b in zip(chain, chain[1:])]
-    if not gaps:
+def _split_chain(chain: list[_Rect], limits: _Limits, lines: np.ndarray,
+                 band: int) -> list[list[_Rect]]:
+    """Split a chain where two well-formed boxes stand too far apart for one field.
+
+    Gaps are measured between consecutive well-formed boxes (skipping parts of
+    boxes between them); a chain is split where such a gap exceeds the median
+    one by ``_GAP_STEP`` heights and no line traces run across it.
+    """
+    good = [i for i, r in enumerate(chain) if limits.fits(r)]
+    gaps = [chain[j].x0 - chain[i].x1 for i, j in zip(good, good[1:])]
+    if len(gaps) < 2:
         return [chain]
     limit = float(np.median(gaps)) + _GAP_STEP * float(np.median([r.h for r in chain]))
-    parts, current = [], [chain[0]]
-    for gap, a, b in zip(gaps, chain, chain[1:]):
-        if gap > limit and not _lines_continue(ink, a, b, band):
-            parts.append(current)
-            current = []
-        current.append(b)
-    parts.append(current)
-    return parts
+    cuts = [j for (i, j), gap in zip(zip(good, good[1:]), gaps)
+            if gap > limit and not _lines_continue(lines, chain[i], chain[j], band)]
+    bounds = [0] + cuts + [len(chain)]
+    return [chain[a:b] for a, b in zip(bounds, bounds[1:])]
 
 
 def _box_width(good: list[_Rect]) -> float:
-    """The width most of a chain's boxes share (parts of split boxes are narrower)."""
+    """The widest width that two or more of a chain's boxes share (parts of split boxes are
+    narrower); the widest width when no two agree."""
     widths = np.array([r.w for r in good], float)
     near = np.abs(widths[:, None] - widths[None, :]) <= _SAME_WIDTH * widths[:, None]
     counts = near.sum(axis=1)
-    best = max(range(len(widths)), key=lambda i: (counts[i], widths[i]))
+    shared = counts >= min(2, int(counts.max()))
+    best = max(np.flatnonzero(shared), key=lambda i: widths[i])  # the widest shared width
     return float(np.median(widths[near[best]]))
 
 
@@ -732,26 +740,31 @@ def _group(rects: list[_Rect], lines: np.ndarray, ink: np.ndarray, px_per_mm: fl
     """Chain regions into fields, fit each field's row of boxes, drop what is not a digit box."""
     limits = _Limits(0.9 * min_box_mm * px_per_mm, max_box_mm * px_per_mm)
     band = max(2, int(round(_LINE_BAND_MM * px_per_mm)))
-    chains = [part for chain in _chains(rects, ink, band)
-              for part in _split_chain(chain, ink, band)]
+    chains = [part for chain in _chains(rects, lines, band)
+              for part in _split_chain(chain, limits, lines, band)]
     refs = _references(chains, limits)
+    fitted = []
+    for part in chains:
+        boxes, n, pitch = _fit_field(part, limits, refs, ink)
+        if boxes and _ruled(lines, boxes[0].x0, boxes[-1].x1, boxes[0].y0, boxes[0].y1, band,
+                            _FIELD_RULED):
+            fitted.append((boxes, n, pitch, sum(limits.fits(r) for r in part)))
+    fitted = _drop_odd_lone_boxes(fitted)
     fields: list[list[_Rect]] = []
     placed = 0
     taken = np.zeros(lines.shape, bool)
-    fitted = []
-    # chains holding well-formed boxes first; the others may not overlap them
-    for part in sorted(chains, key=lambda c: not any(limits.fits(r) for r in c)):
-        boxes, n, pitch = _fit_field(part, limits, refs, ink)
-        if boxes and not any(taken[b.y0:b.y1, b.x0:b.x1].any() for b in boxes):
+    kept = []
+    # fields seen with more well-formed boxes first; the others may not overlap them
+    for boxes, n, pitch, _ in sorted(fitted, key=lambda f: -f[3]):
+        if not any(taken[b.y0:b.y1, b.x0:b.x1].any() for b in boxes):
             for b in boxes:
                 taken[b.y0:b.y1, b.x0:b.x1] = True
-            fitted.append((boxes, pitch))
+            kept.append((boxes, pitch))
             placed += n
-    for boxes, pitch in fitted:
+    for boxes, pitch in kept:
         boxes, n = _extend(boxes, pitch, ink, band, taken)
         fields.append(boxes)
         placed += n
-    fields = _drop_odd_lone_boxes(fields)
     if placed:
         notes.append(f"{placed} box{'es' if placed > 1 else ''} placed from the neighbouring "
                      "boxes (walls broken or covered)")
@@ -791,16 +804,20 @@ def _extend(boxes: list[_Rect], pitch: float, ink: np.ndarray, band: int,
     return boxes, added
 
 
-def _drop_odd_lone_boxes(fields: list[list[_Rect]]) -> list[list[_Rect]]:
-    """Keep a one-box field only when it matches the page's usual box size."""
-    multi = [r for f in fields if len(f) > 1 for r in f]
-    ref = multi or [r for f in fields for r in f]
+def _drop_odd_lone_boxes(fitted: list[tuple]) -> list[tuple]:
+    """Keep a one-box field only when it matches the page's usual box size.
+
+    ``fitted`` holds ``(boxes, ...)`` tuples; the usual size is the median box of
+    the fields of several boxes, or of all fields when there are none.
+    """
+    multi = [r for f in fitted if len(f[0]) > 1 for r in f[0]]
+    ref = multi or [r for f in fitted for r in f[0]]
     if not ref:
         return []
     w = float(np.median([r.w for r in ref]))
     h = float(np.median([r.h for r in ref]))
-    return [f for f in fields if len(f) > 1 or (
-        abs(f[0].w - w) <= _LONE_TOLERANCE * w and abs(f[0].h - h) <= _LONE_TOLERANCE * h)]
+    return [f for f in fitted if len(f[0]) > 1 or (
+        abs(f[0][0].w - w) <= _LONE_TOLERANCE * w and abs(f[0][0].h - h) <= _LONE_TOLERANCE * h)]
 
 
 def _scale_box(r: _Rect, factor: float) -> Box:
