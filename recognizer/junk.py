@@ -9,7 +9,9 @@ bounding box scaled into 20x20 keeping aspect, centred by centre of mass in
 
 Shapes that are digits in disguise are left out on purpose: a lone vertical
 or steep straight stroke (a "1"), a closed oval (a "0"), a top bar with a
-stroke down its right end (a "7"), and letters such as O, I, S, Z, B, G.
+stroke down its right end (a "7"), open arcs and hooks (parts of 0, 2, 6) and
+letters such as O, I, S, Z, B, G, C, P, U, V, N, Y.  Measured: with those in
+the training junk, about 1 % of real digits were eaten by the eleventh class.
 """
 
 from __future__ import annotations
@@ -21,7 +23,7 @@ import numpy as np
 
 _CANVAS = 96
 _TRIES = 5
-_LETTERS = "ACEFHKMNPRUVWXY"
+_LETTERS = "AEFHKMRWX"
 _FONTS = (
     cv2.FONT_HERSHEY_SIMPLEX,
     cv2.FONT_HERSHEY_DUPLEX,
@@ -93,10 +95,10 @@ def _smooth_path(rng: np.random.Generator, n_points: int) -> np.ndarray:
 def _scribble(rng: np.random.Generator, canvas: np.ndarray) -> None:
     """Tangled curve or zig-zag hatching."""
     if rng.random() < 0.5:
-        cv2.polylines(canvas, [_smooth_path(rng, int(rng.integers(25, 60)))], False, 1.0,
+        cv2.polylines(canvas, [_smooth_path(rng, int(rng.integers(40, 70)))], False, 1.0,
                       _thickness(rng), cv2.LINE_AA)
     else:
-        k = int(rng.integers(5, 10))
+        k = int(rng.integers(6, 11))
         x = np.linspace(15, 81, k) + rng.normal(0, 3, k)
         y = np.where(np.arange(k) % 2 == 0, rng.uniform(15, 35, k), rng.uniform(60, 80, k))
         if rng.random() < 0.5:
@@ -171,23 +173,14 @@ def _box_line(rng: np.random.Generator, canvas: np.ndarray) -> None:
 
 
 def _letter(rng: np.random.Generator, canvas: np.ndarray) -> None:
-    """A capital letter (Hershey font) or a loose letter-like shape."""
-    if rng.random() < 0.7:
-        ch = _LETTERS[int(rng.integers(len(_LETTERS)))]
-        font = _FONTS[int(rng.integers(len(_FONTS)))]
-        scale = 2.0
-        thick = int(rng.integers(4, 9))
-        (tw, th), _ = cv2.getTextSize(ch, font, scale, thick)
-        org = ((_CANVAS - tw) // 2, (_CANVAS + th) // 2)
-        _put_text(canvas, ch, org, font, scale, thick)
-    else:  # open arcs and hooks: a "c", "u", "n" or "e" like shape
-        c = (48 + int(rng.integers(-6, 7)), 48 + int(rng.integers(-6, 7)))
-        axes = (int(rng.integers(18, 36)), int(rng.integers(18, 36)))
-        start = float(rng.uniform(0, 360))
-        cv2.ellipse(canvas, c, axes, float(rng.uniform(0, 180)), start, start + float(rng.uniform(150, 250)),
-                    1.0, _thickness(rng), cv2.LINE_AA)
-        if rng.random() < 0.5:
-            cv2.line(canvas, (c[0] - axes[0], c[1]), (c[0] + axes[0], c[1]), 1.0, _thickness(rng), cv2.LINE_AA)
+    """A capital letter (Hershey font) unlike any digit."""
+    ch = _LETTERS[int(rng.integers(len(_LETTERS)))]
+    font = _FONTS[int(rng.integers(len(_FONTS)))]
+    scale = 2.0
+    thick = int(rng.integers(4, 9))
+    (tw, th), _ = cv2.getTextSize(ch, font, scale, thick)
+    org = ((_CANVAS - tw) // 2, (_CANVAS + th) // 2)
+    _put_text(canvas, ch, org, font, scale, thick)
 
 
 def _put_text(canvas: np.ndarray, text: str, org: tuple[int, int], font: int, scale: float, thick: int) -> None:
@@ -197,14 +190,27 @@ def _put_text(canvas: np.ndarray, text: str, org: tuple[int, int], font: int, sc
     np.maximum(canvas, layer.astype(np.float32) / 255.0, out=canvas)
 
 
-def _font_digit(rng: np.random.Generator) -> np.ndarray:
-    """A printed digit (Hershey font), MNIST layout, used when no real digits are given."""
-    canvas = np.zeros((_CANVAS, _CANVAS), np.float32)
-    ch = str(int(rng.integers(10)))
-    font = _FONTS[int(rng.integers(len(_FONTS)))]
-    (tw, th), _ = cv2.getTextSize(ch, font, 2.5, 6)
-    _put_text(canvas, ch, ((_CANVAS - tw) // 2, (_CANVAS + th) // 2), font, 2.5, 6)
-    return to_mnist_layout(canvas)
+def printed_digits(n: int, *, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """Printed digits (Hershey fonts, random font and weight), MNIST layout.
+
+    Used to cross out when no real digits are given, and as small self-made
+    digit data for tests.
+
+    Returns
+    -------
+    images : ndarray, float32, shape (n, 28, 28), values 0..1
+    labels : ndarray, int64, shape (n,), digits 0..9
+    """
+    labels = rng.integers(0, 10, size=n)
+    images = np.zeros((n, 28, 28), np.float32)
+    for i, d in enumerate(labels):
+        canvas = np.zeros((_CANVAS, _CANVAS), np.float32)
+        font = _FONTS[int(rng.integers(len(_FONTS)))]
+        thick = int(rng.integers(4, 9))
+        (tw, th), _ = cv2.getTextSize(str(d), font, 2.5, thick)
+        _put_text(canvas, str(d), ((_CANVAS - tw) // 2, (_CANVAS + th) // 2), font, 2.5, thick)
+        images[i] = to_mnist_layout(canvas)
+    return images, labels.astype(np.int64)
 
 
 KINDS: tuple[str, ...] = ("scribble", "crossed_out", "stray", "box_line", "letter")
@@ -252,7 +258,7 @@ def junk_marks(
             canvas = np.zeros((_CANVAS, _CANVAS), np.float32)
             if kind == "crossed_out":
                 pick = digits is not None and len(digits) > 0
-                base = digits[int(rng.integers(len(digits)))] if pick else _font_digit(rng)
+                base = digits[int(rng.integers(len(digits)))] if pick else printed_digits(1, rng=rng)[0][0]
                 _crossed_out(rng, canvas, np.asarray(base, np.float32))
             else:
                 draw[kind](rng, canvas)

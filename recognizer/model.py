@@ -191,7 +191,7 @@ class DigitModel:
         a = np.asarray(cells)
         if a.ndim != 3 or a.shape[1:] != (CELL_SIZE, CELL_SIZE):
             raise ValueError(f"cells must have shape (n, 28, 28), got {a.shape}")
-        features = deskew(a).reshape(len(a), -1)
+        features = deskew(a).reshape(len(a), CELL_SIZE * CELL_SIZE)
         return self._calibrate(self._ensemble_proba(features))
 
     def _ensemble_proba(self, features: np.ndarray) -> np.ndarray:
@@ -305,7 +305,7 @@ def load_model(path: str | Path | None = None) -> DigitModel:
     if not path.is_file():
         raise ModelFileError(path, "file not found")
     if not zipfile.is_zipfile(path):
-        raise ModelFileError(path, "not an .npz archive (not a zip file)")
+        raise ModelFileError(path, "not an .npz archive, or truncated (no zip directory found)")
     arrays = _read_arrays(path)
     meta = _read_metadata(path, arrays.pop("metadata", None))
     members = _read_members(path, arrays, meta)

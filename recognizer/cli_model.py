@@ -1,0 +1,124 @@
+"""``inkcount model ...``: train and evaluate the digit model from the command line."""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+import sys
+import time
+import zipfile
+from pathlib import Path
+
+import numpy as np
+
+from recognizer.model import ModelFileError, default_model_path, load_model
+
+
+def add_model_commands(subparsers: argparse._SubParsersAction) -> None:
+    """Add the ``model`` command with ``train`` and ``evaluate`` to an argparse sub-parser set."""
+    model = subparsers.add_parser("model", help="train or evaluate the digit model")
+    sub = model.add_subparsers(dest="model_command", required=True)
+
+    train = sub.add_parser("train", help="train a digit model on a file of labelled digits")
+    train.add_argument("--data", required=True, type=Path,
+                       help="npz with 'images' (n, 28, 28) uint8 white ink on black and 'labels' (n,) 0..9")
+    train.add_argument("-o", "--output", required=True, type=Path, help="model file to write (.npz)")
+    train.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    train.add_argument("--quick", action="store_true", help="small settings: seconds instead of minutes")
+    train.set_defaults(func=run_train)
+
+    evaluate = sub.add_parser("evaluate", help="measure a model on the held-out MNIST digits")
+    evaluate.add_argument("--model", type=Path, default=None, help="model file (default: the shipped model)")
+    evaluate.add_argument("--report", type=Path, default=None,
+                          help="directory for figures.json, accuracy_reject.png, reliability.png")
+    evaluate.set_defaults(func=run_evaluate)
+
+
+def load_training_data(path: Path) -> tuple[np.ndarray, np.ndarray]:
+    """Read and check a training file.
+
+    Returns
+    -------
+    images : ndarray, uint8, shape (n, 28, 28)
+    labels : ndarray, int64, shape (n,), values 0..9
+
+    Raises
+    ------
+    ValueError
+        With a message naming the file and the problem.
+    """
+    if not path.is_file():
+        raise ValueError(f"{path}: file not found")
+    try:
+        with np.load(path, allow_pickle=False) as npz:
+            missing = {"images", "labels"} - set(npz.files)
+            if missing:
+                raise ValueError(f"{path}: missing array(s) {sorted(missing)}")
+            images, labels = npz["images"], npz["labels"]
+    except (OSError, EOFError, zipfile.BadZipFile) as exc:
+        raise ValueError(f"{path}: not a readable .npz file ({exc})") from None
+    except ValueError as exc:
+        if str(exc).startswith(str(path)):
+            raise
+        raise ValueError(f"{path}: refused ({exc})") from None
+    if images.ndim != 3 or images.shape[1:] != (28, 28) or images.dtype != np.uint8:
+        raise ValueError(f"{path}: 'images' must be uint8 (n, 28, 28), got {images.dtype} {images.shape}")
+    if labels.shape != (len(images),) or labels.dtype.kind not in "iu":
+        raise ValueError(f"{path}: 'labels' must be {len(images)} integers, got {labels.dtype} {labels.shape}")
+    if len(labels) == 0 or labels.min() < 0 or labels.max() > 9:
+        raise ValueError(f"{path}: labels must be digits 0..9")
+    return images, labels.astype(np.int64)
+
+
+def run_train(args: argparse.Namespace) -> int:
+    """Handler of ``inkcount model train``; returns the exit code."""
+    from recognizer.evaluation import evaluate_model, format_report, load_heldout
+    from recognizer.training import QUICK_SETTINGS, TrainSettings, train_model
+
+    try:
+        images, labels = load_training_data(args.data)
+    except ValueError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    settings = QUICK_SETTINGS if args.quick else TrainSettings()
+    source = {
+        "file": args.data.name,
+        "file_sha256": hashlib.sha256(args.data.read_bytes()).hexdigest(),
+        "description": "MNIST training digits (uint8 28x28, white ink on black); " + (
+            "the MNIST database of handwritten digits, Yann LeCun, Corinna Cortes, Christopher J.C. Burges"),
+    }
+    start = time.perf_counter()
+    model = train_model(images, labels, seed=args.seed, settings=settings,
+                        progress=lambda msg: print(msg, flush=True),
+                        name="inkcount-quick" if args.quick else "inkcount-base", data_source=source)
+    print(f"training took {time.perf_counter() - start:.0f} s")
+    try:
+        figures = evaluate_model(model, *load_heldout())
+    except RuntimeError as exc:
+        print(f"note: no held-out figures ({exc})")
+    else:
+        model.metadata["evaluation"] = {k: v for k, v in figures.items() if k not in ("confidence", "correct")}
+        print(format_report(figures))
+    args.output.parent.mkdir(parents=True, exist_ok=True)
+    model.save(args.output)
+    print(f"wrote {args.output} ({args.output.stat().st_size / 1e6:.2f} MB), version {model.version}")
+    return 0
+
+
+def run_evaluate(args: argparse.Namespace) -> int:
+    """Handler of ``inkcount model evaluate``; returns the exit code."""
+    from recognizer.evaluation import evaluate_model, format_report, load_heldout, write_report
+
+    path = args.model or default_model_path()
+    try:
+        model = load_model(path)
+        images, labels = load_heldout()
+    except (ModelFileError, RuntimeError) as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    figures = evaluate_model(model, images, labels)
+    print(format_report(figures))
+    if args.report is not None:
+        for written in write_report(figures, args.report):
+            print(f"wrote {written}")
+    return 0
