@@ -49,6 +49,8 @@ def load_training_data(path: Path) -> tuple[np.ndarray, np.ndarray]:
     """
     if not path.is_file():
         raise ValueError(f"{path}: file not found")
+    if not zipfile.is_zipfile(path):
+        raise ValueError(f"{path}: not an .npz archive (or truncated)")
     try:
         with np.load(path, allow_pickle=False) as npz:
             missing = {"images", "labels"} - set(npz.files)

