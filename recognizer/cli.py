@@ -17,10 +17,14 @@ from importlib.metadata import entry_points
 from pathlib import Path
 
 from . import __version__
+from .batch import Batch, BatchFileError, ingest_scans
+from .cli_batch import add_batch_commands
 from .cli_model import add_model_commands
 from .export import DigitsWriter, ValuesTable
 from .model import ModelFileError, load_model
 from .pipeline import ReadSettings, read_scans
+from .reading import PageRead
+from .review import DEFAULT_TARGET_ERROR, set_target_error, set_threshold
 from .scan import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, ScanProblem, count_pages, list_scans
 
 __all__ = ["main", "build_parser", "COMMANDS_GROUP"]
@@ -46,6 +50,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"inkcount {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     _add_read_command(sub)
+    add_batch_commands(sub)
     add_model_commands(sub)
     for entry in entry_points(group=COMMANDS_GROUP):
         entry.load()(sub)
@@ -60,14 +65,15 @@ def _add_read_command(sub) -> None:
         "write one CSV row per page. " + CAUTION,
     )
     p.add_argument("scans", nargs="+", metavar="SCANS", help="scan files (PNG, JPEG, BMP, TIFF, PDF) or folders")
-    p.add_argument("--out", "-o", required=True, type=Path, metavar="CSV", help="values table to write (one row per page)")
+    p.add_argument("--out", "-o", type=Path, metavar="CSV", help="values table to write (one row per page)")
+    p.add_argument("--batch", "-b", type=Path, metavar="FILE", help="batch file (.inkcount) to create or extend, for review and export; files already in it are not read again")
     p.add_argument("--digits", type=Path, metavar="CSV", help="also write one row per digit with its confidence and probabilities")
     p.add_argument("--recursive", "-r", action="store_true", help="look in sub-folders too")
     p.add_argument("--workers", "-j", type=_positive_int, default=1, metavar="N", help="pages read in parallel by N processes (default 1)")
     p.add_argument("--model", type=Path, metavar="FILE", help="digit model file (default: the model shipped with Inkcount)")
     strict = p.add_mutually_exclusive_group()
     strict.add_argument(
-        "--target-error", type=_percent, default=0.1, metavar="PERCENT",
+        "--target-error", type=_percent, metavar="PERCENT",
         help="share of wrong digits you accept among those not sent to review, in percent (default 0.1); "
         "sets the confidence threshold from the model's calibration",
     )
@@ -103,77 +109,137 @@ def _err(message: str) -> None:
     print(f"inkcount: {message}", file=sys.stderr)
 
 
+class _Tally:
+    """Takes each page result of a read: counts it, reports problems, fills the tables."""
+
+    def __init__(self, threshold: float, bar, digits_out: DigitsWriter | None):
+        self.threshold = threshold
+        self.bar = bar
+        self.digits_out = digits_out
+        self.table = ValuesTable()
+        self.problems: list[str] = []
+        self.pages = self.fields = self.digits = self.doubtful = self.fields_to_check = 0
+
+    def problem(self, problem: ScanProblem) -> None:
+        self.table.add_problem(problem)
+        self.problems.append(str(problem))
+        self.bar.write(f"inkcount: {problem}", file=sys.stderr)
+
+    def add(self, result: PageRead | ScanProblem) -> None:
+        if isinstance(result, ScanProblem):
+            self.problem(result)
+            self.bar.update(0 if result.page is None else 1)
+            return
+        self.bar.update(1)
+        self.table.add_page(result, threshold=self.threshold)
+        if not result:
+            message = f"{result.source}: page {result.page}: {result.problem}"
+            self.problems.append(message)
+            self.bar.write(f"inkcount: {message}", file=sys.stderr)
+            return
+        self.pages += 1
+        self.fields += len(result.fields)
+        self.digits += len(result.digits())
+        self.doubtful += sum(len(f.doubtful_digits(self.threshold)) for f in result.fields)
+        self.fields_to_check += sum(1 for f in result.fields if result.warnings or f.to_check(self.threshold))
+        if self.digits_out:
+            self.digits_out.add_page(result)
+
+    def summary(self) -> str:
+        return (
+            f"Read {self.pages} page(s): {self.fields} fields, {self.digits} digits. "
+            f"{self.doubtful} digit(s) to check (confidence below {self.threshold:.3f}, or not a digit); "
+            f"{self.fields_to_check} field(s) to check. {len(self.problems)} problem(s)."
+        )
+
+
 def run_read(args: argparse.Namespace) -> int:
     from tqdm import tqdm
 
+    if args.out is None and args.batch is None:
+        _err("say where the values go: --out values.csv, --batch FILE.inkcount, or both")
+        return 2
     try:
         model = load_model(args.model)
     except ModelFileError as exc:
         _err(str(exc))
         return 2
-    threshold = args.threshold if args.threshold is not None else model.threshold_for(args.target_error / 100)
-
-    files, problems = list_scans(args.scans, recursive=args.recursive)
-    total = sum(n for n in (count_pages(f, max_pixels=args.max_pixels) for f in files) if isinstance(n, int))
+    files, listing_problems = list_scans(args.scans, recursive=args.recursive)
     settings = ReadSettings(
         model_path=str(args.model) if args.model else None,
         pdf_dpi=args.pdf_dpi,
         max_pixels=args.max_pixels,
     )
-    table = ValuesTable()
-    counts = {"pages": 0, "fields": 0, "digits": 0, "doubtful": 0, "fields_to_check": 0}
-    all_problems: list[ScanProblem | str] = list(problems)
-    for problem in problems:
-        table.add_problem(problem)
-        _err(str(problem))
-
-    bar = tqdm(total=total, unit="page", desc="reading", disable=True if args.quiet else None, file=sys.stderr)
-    try:
-        with ExitStack() as stack:
-            stack.callback(bar.close)
+    with ExitStack() as stack:
+        batch = None
+        if args.batch is not None:
+            try:
+                batch = stack.enter_context(Batch.open(args.batch, create=True))
+            except BatchFileError as exc:
+                _err(str(exc))
+                return 2
+            _apply_strictness(batch, args, model)
+        threshold = _threshold(args, model, batch)
+        total = sum(n for n in (count_pages(f, max_pixels=args.max_pixels) for f in files) if isinstance(n, int))
+        bar = tqdm(total=total, unit="page", desc="reading", disable=True if args.quiet else None, file=sys.stderr)
+        stack.callback(bar.close)
+        try:
             digits_out = stack.enter_context(DigitsWriter(args.digits)) if args.digits else None
+        except OSError as exc:
+            _err(f"cannot write {args.digits}: {exc}")
+            return 2
+        tally = _Tally(threshold, bar, digits_out)
+        if batch is None:
+            for problem in listing_problems:
+                tally.problem(problem)
             for result in read_scans(files, settings=settings, workers=args.workers, model=model):
-                if isinstance(result, ScanProblem):
-                    table.add_problem(result)
-                    all_problems.append(result)
-                    bar.write(f"inkcount: {result}", file=sys.stderr)
-                    bar.update(1 if result.page is not None else 0)
-                    continue
-                bar.update(1)
-                table.add_page(result, threshold=threshold)
-                if not result:
-                    message = f"{result.source}: page {result.page}: {result.problem}"
-                    all_problems.append(message)
-                    bar.write(f"inkcount: {message}", file=sys.stderr)
-                    continue
-                counts["pages"] += 1
-                counts["fields"] += len(result.fields)
-                digits = result.digits()
-                counts["digits"] += len(digits)
-                counts["doubtful"] += sum(1 for d in digits if d.not_a_digit or d.confidence < threshold)
-                counts["fields_to_check"] += sum(1 for f in result.fields if result.warnings or f.to_check(threshold))
-                if digits_out:
-                    digits_out.add_page(result)
-    except OSError as exc:
-        _err(f"cannot write the digits table: {exc}")
-        return 2
-    try:
-        table.write(args.out)
-    except OSError as exc:
-        _err(f"cannot write {args.out}: {exc}")
-        return 2
+                tally.add(result)
+        else:
+            summary = ingest_scans(
+                batch, files, settings=settings, workers=args.workers,
+                model=model if args.workers == 1 else None,
+                problems=listing_problems, on_result=tally.add,
+            )
+            for problem in listing_problems:
+                tally.problems.append(str(problem))
+            for path, known_as in summary.known:
+                bar.write(f"inkcount: {path}: already in the batch (as {known_as}), not read again", file=sys.stderr)
+    if args.out is not None:
+        try:
+            tally.table.write(args.out)
+        except OSError as exc:
+            _err(f"cannot write {args.out}: {exc}")
+            return 2
 
-    print(
-        f"Read {counts['pages']} page(s): {counts['fields']} fields, {counts['digits']} digits. "
-        f"{counts['doubtful']} digit(s) in {counts['fields_to_check']} field(s) to check "
-        f"(confidence below {threshold:.3f}, or not a digit, or a gap). "
-        f"{len(all_problems)} problem(s).",
-    )
-    for problem in all_problems:
+    print(tally.summary())
+    for problem in tally.problems:
         print(f"  problem: {problem}")
-    print(f"Values written to {args.out}" + (f", digits to {args.digits}" if args.digits else "") + ".")
+    written = [f"values to {args.out}"] if args.out else []
+    written += [f"digits to {args.digits}"] if args.digits else []
+    written += [f"batch {args.batch}"] if args.batch else []
+    print("Written: " + ", ".join(written) + ".")
     print(CAUTION)
-    return 0 if counts["pages"] or not all_problems else 1
+    return 0 if tally.pages or not tally.problems else 1
+
+
+def _apply_strictness(batch: Batch, args: argparse.Namespace, model) -> None:
+    """A threshold or target given on the command line becomes the batch's setting."""
+    if args.threshold is not None:
+        set_threshold(batch, args.threshold)
+    elif args.target_error is not None and batch.settings.threshold is not None:
+        set_target_error(batch, args.target_error / 100, model=model)
+    elif args.target_error is not None:
+        with batch.transaction() as conn:
+            batch.update_settings(conn, target_error=args.target_error / 100)
+
+
+def _threshold(args: argparse.Namespace, model, batch: Batch | None) -> float:
+    if args.threshold is not None:
+        return args.threshold
+    if batch is not None and batch.settings.threshold is not None:
+        return batch.settings.threshold
+    target = args.target_error if args.target_error is not None else DEFAULT_TARGET_ERROR * 100
+    return model.threshold_for(target / 100)
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -62,7 +62,7 @@ def test_forms_of_real_digits_read_within_one_point_of_direct_accuracy(model):
     names = formgen.fnames(layout)
     source = HeldOutDigits(seed=7)
     reader = PageReader(model)
-    right = total = fields_right = fields_total = 0
+    right = total = fields_right = fields_total = box_errors = 0
     for i in range(24):
         dpi = (200, 300)[i % 2]
         form = formgen.render_form(layout, _values(layout, rng), dpi=dpi, digit_source=source, rng=rng)
@@ -73,16 +73,15 @@ def test_forms_of_real_digits_read_within_one_point_of_direct_accuracy(model):
         got = reader.read(Page(Path(f"form{i + 1}.png"), 1, form.image, float(dpi), "file"))
         assert got, got.problem
         by_name = {f.name: f for f in got.fields}
-        assert len(by_name) == len(layout.fields)
         for spec in layout.fields:
-            found = by_name[names[spec.name]]
+            found = by_name.get(names[spec.name])
             truth = form.cells[spec.name]
-            assert len(found.digits) == len(truth)
-            for digit, char in zip(found.digits, truth):
-                if char:
-                    total += 1
-                    right += digit.text == char
             fields_total += 1
+            total += sum(1 for char in truth if char)
+            if found is None or len(found.digits) != len(truth):
+                box_errors += 1  # every digit of a field found wrongly counts as misread
+                continue
+            right += sum(d.text == char for d, char in zip(found.digits, truth) if char)
             fields_right += found.value == form.values[spec.name]
     used = np.array(source.used)
     direct = model.predict_proba(source.images[used].astype(np.float32) / 255.0).argmax(axis=1)
@@ -92,7 +91,8 @@ def test_forms_of_real_digits_read_within_one_point_of_direct_accuracy(model):
         f"\nMNIST held-out digits on {fields_total // len(layout.fields)} forms: {total} digits; "
         f"direct accuracy {direct_acc:.2%}, on forms {form_acc:.2%} "
         f"(loss {100 * (direct_acc - form_acc):.2f} points); "
-        f"field exact match {fields_right / fields_total:.2%} of {fields_total} fields"
+        f"field exact match {fields_right / fields_total:.2%} of {fields_total} fields; "
+        f"{box_errors} field(s) found with the wrong boxes"
     )
     assert total == len(used)
     assert form_acc >= direct_acc - 0.010
