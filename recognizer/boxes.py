@@ -1,49 +1,71 @@
 """Find the printed digit boxes ("comb" fields) on a scanned page, without a template.
 
-The page is cleaned of uneven lighting, its skew is measured and removed, the
-straight printed lines are picked out, and the closed rectangles they enclose
-are kept when they are shaped like digit boxes.  Neighbouring boxes of one
-height make up a field.
+The page is cleaned of uneven lighting, its skew is measured and removed,
+the straight horizontal printed lines are picked out, and the stretches
+between two lines a box height apart and two walls are kept when they are
+shaped like digit boxes.  Aligned neighbouring boxes make up a field, and
+each field is fitted as a row of equal boxes at a regular pitch, which
+repairs boxes that broken lines or handwriting hid.
 
 Pipeline
 --------
-1. *Lighting*: the paper level is estimated on a coarse grid (a grey closing
-   that wipes out thin ink) and divided out, so paper is about 255 everywhere.
-2. *Ink*: after a light smoothing, pixels darker than the paper by more than
-   the larger of 4.5 noise deviations and 22 grey levels are ink.
-3. *Skew*: the horizontal projection profile of the ink, seen at about 100 dpi,
-   is sharpest at the page's skew (sum of squared row counts, searched over
-   +-``max_skew_deg``); the page is rotated back about its centre, keeping its
-   size.
-4. *Ruling lines*: morphological closing along each direction bridges gaps up
-   to 1.6 mm, an opening with a thin kernel 80 % of ``min_box_mm`` long keeps
-   straight runs, and parts more than 1 mm thick across the run (words whose
-   letters were bridged, blobs of handwriting) are taken out again.
-5. *Cells*: the 4-connected regions of paper enclosed by those lines, found
-   after eroding the paper by 0.4 mm so that a region cannot leak out through
-   a small hole where broken lines meet.
+1. *Lighting*: the paper level is estimated on a 1 mm grid (a grey closing
+   over 5 mm wipes out thin ink) and divided out, so paper is near 255.
+2. *Ink*: after a light smoothing (0.1 mm), pixels darker than the paper by
+   more than the larger of 4.5 noise deviations and 22 grey levels are ink.
+3. *Skew*: the horizontal projection profile of the ink, seen at about
+   100 dpi, is sharpest at the page's skew (sum of squared row counts,
+   searched in 0.25 degree steps over +-``max_skew_deg`` and refined in
+   0.02 degree steps); the page is rotated back about its centre, keeping
+   its size.  Pages above 300 dpi are searched at 300 dpi.
+4. *Lines*: an opening with a one-pixel-high kernel 35 % of ``min_box_mm``
+   long keeps straight horizontal runs, a closing joins runs less than 2 mm
+   apart; the segments at most 1.2 mm thick are the candidate lines, and
+   collinear segments less than ``min_box_mm`` apart are joined (a broken
+   line).
+5. *Regions*: for two lines between ``0.9 * min_box_mm`` and ``max_box_mm``
+   apart with no other line across their band, a column of the band is a
+   wall where ink covers 90 % of its height, or 55 % reaching both lines (a
+   broken wall); walls are at most 1.2 mm thick.  The stretch between two
+   walls is a region when it is at most half ink and lines cover half of its
+   top and bottom edges.
 
-Which rectangles are digit boxes
---------------------------------
-* Inner width and height (between the lines) each lie in
-  [``min_box_mm``, ``max_box_mm``], height / width lies in [0.7, 2.2], and
-  other paper regions reaching into its bounding rectangle take less than
-  20 % of it (strokes of a digit inside the box do not count against it).  Wide table cells,
-  the big notes frame, text, rings and small tick boxes fail this.
-* *Fields*: two boxes are neighbours in a field when their tops and bottoms
-  agree within 12 % of the box height and the gap between their inner
-  rectangles is at most 37.5 % of the box height (45 % of the width of a box
-  1.2 times as high as wide).  A chain of neighbours is split where a gap
-  exceeds the chain's smallest gap by more than 17 % of the box height (a
-  comb next to a separate box is two fields).
-* *Repairs* inside a field: a box about k times the field's box width with
-  traces of the missing walls is split into k boxes (a broken wall); two
-  adjacent narrow parts that together make one box are joined (a straight
-  stroke such as a "1" drawn from wall to wall).  Parts that fit neither are
-  ignored with a warning.
+Which regions are digit boxes
+-----------------------------
+* A *box* has an inner width and height in [``0.9 * min_box_mm``,
+  ``max_box_mm``] and a height / width ratio in [0.7, 1.8].  Table cells
+  and the notes frame are too wide, tick boxes too small, text and rings
+  give no walls.
+* *Chains*: a region is linked to its nearest right neighbour whose top and
+  bottom agree within 12 % of the height, when the gap between them is at
+  most 42 % of the box height (separate boxes with a small gap still form
+  one field), or at most 2.5 heights with traces of the top and bottom
+  lines over 30 % of the gap (boxes lost in between).  A chain is split where
+  the gap between two consecutive boxes exceeds the median such gap by 17 %
+  of the height and no line traces cross it (a comb next to a separate box
+  is two fields).
+* *Row fitting*: a field is a row of equal boxes: the width is the widest
+  width shared by two of the chain's boxes, the pitch the one that lines up
+  the boxes' centres best (tried from the width to the width plus the
+  largest gap), and the row spans the chain.  A box edge is taken from a
+  region edge within 10 % of a box width of where the row puts it.  So a box
+  that a stroke from wall to wall cut in two, or two boxes run together
+  through a broken wall, come out as the row says.  A chain with no box of
+  box size is fitted with the size of the page's boxes of its height, when
+  its span is a whole number of boxes and traces of the walls between them
+  stand where they should.
+* *Ends*: a field grows by up to two boxes at each end where the top and
+  bottom lines run on over a box and a wall trace stands at its outer edge.
+* *Checks*: lines must cover 70 % of a field's top and bottom edges; fields
+  are kept in order of their count of well-formed boxes and may not overlap a
+  field kept before.
 * *Lone boxes*: a field of one box is kept only when its width and height are
-  within 25 % of the median box of the page's multi-box fields (of all boxes if
-  there are none); a lone tick box of a clearly different size is furniture.
+  within 25 % of the median box of the page's fields of several boxes (of all
+  boxes if there are none); a lone tick box of a clearly different size is
+  furniture, not a digit field.
+* *Warnings*: boxes placed where no region covered half of them (lost boxes
+  inside a field or added at its ends), lines fainter than 80 grey levels
+  below the paper, and a skew beyond ``max_skew_deg``.
 
 Field order
 -----------
@@ -86,10 +108,10 @@ _MAX_WALL_MM = 1.2         # a wall or line is at most this thick
 _MAX_INK = 0.5             # a box region is mostly paper
 _CROSSING = 0.9            # a line this long between two lines splits their band
 _LINE_FRACTION = 0.35      # opening length as a fraction of min_box_mm
-_ASPECT = (0.7, 2.2)       # height / width of a digit box
+_ASPECT = (0.7, 1.8)       # height / width of a digit box
 _ALIGN = 0.12              # tops and bottoms agree within this part of the height
 _MAX_GAP = 0.42            # neighbours' gap under this part of the box height
-_GAP_STEP = 0.17           # a gap this much (part of box height) over the smallest splits
+_GAP_STEP = 0.17           # a gap this much (part of box height) over the median splits
 _MISSING_GAP = 2.5         # farthest neighbour (box heights) joined by running lines
 _RULED = 0.5               # share of a region's top and bottom edge that lines must cover
 _FIELD_RULED = 0.7         # ... and of a whole field's top and bottom edge
@@ -546,14 +568,17 @@ def _aligned(a: _Rect, b: _Rect) -> bool:
     return abs(a.y0 - b.y0) <= tol and abs(a.y1 - b.y1) <= tol
 
 
-def _ruled(ink: np.ndarray, x0: int, x1: int, y0: int, y1: int, band: int,
-           share: float = _RULED) -> bool:
-    """Whether ink runs along ``share`` of ``x0..x1`` just above ``y0`` and just below ``y1``."""
+def _ruled(mask: np.ndarray, x0: int, x1: int, y0: int, y1: int, band: int,
+           share: float = _RULED, *, either: bool = False) -> bool:
+    """Whether ``mask`` runs along ``share`` of ``x0..x1`` just above ``y0`` and below ``y1``.
+
+    Both edges must be covered so, or with ``either`` the two on average.
+    """
     if x1 <= x0:
         return True
-    top = ink[max(0, y0 - band):y0, x0:x1].any(axis=0).mean()
-    bottom = ink[y1:y1 + band, x0:x1].any(axis=0).mean()
-    return min(top, bottom) >= share
+    top = mask[max(0, y0 - band):y0, x0:x1].any(axis=0).mean()
+    bottom = mask[y1:y1 + band, x0:x1].any(axis=0).mean()
+    return ((top + bottom) / 2 if either else min(top, bottom)) >= share
 
 
 def _lines_continue(lines: np.ndarray, a: _Rect, b: _Rect, band: int) -> bool:
@@ -775,8 +800,9 @@ def _extend(boxes: list[_Rect], pitch: float, ink: np.ndarray, band: int,
             taken: np.ndarray) -> tuple[list[_Rect], int]:
     """Add boxes lost at a field's ends (their region leaked out through a broken line).
 
-    A box is added one pitch beyond an end while the top and bottom lines run
-    over it, a wall trace stands at its outer edge and no other box is there.
+    A box is added one pitch beyond an end while ink covers half of its top
+    and bottom edges taken together, a wall trace stands at its outer edge and
+    no other box is there.
     """
     if len(boxes) < 2 or pitch <= 0:
         return boxes, 0
@@ -792,7 +818,7 @@ def _extend(boxes: list[_Rect], pitch: float, ink: np.ndarray, band: int,
             x1 = x0 + w
             if x0 < 0 or x1 > ink.shape[1] or taken[y0:y1, x0:x1].any():
                 break
-            if not _ruled(ink, x0, x1, y0, y1, band):
+            if not _ruled(ink, x0, x1, y0, y1, band, either=True):
                 break
             outer = x0 if step < 0 else x1 + int(round(2 * tol))
             if not _wall_trace(ink, outer, y0, y1, tol):
