@@ -1,0 +1,155 @@
+"""Which model reads the batch, how good it was on digits it never saw, and its
+accuracy–reject curve (drawn with QPainter).
+
+The curve comes from the model file's own evaluation figures (the held-out
+reject table: share of digits sent to a person against the accuracy of those
+accepted automatically).
+"""
+
+from __future__ import annotations
+
+from PySide6.QtCore import QPointF, QRectF, Qt
+from PySide6.QtGui import QColor, QFont, QPainter, QPainterPath, QPen
+from PySide6.QtWidgets import QFormLayout, QLabel, QPushButton, QSizePolicy, QVBoxLayout, QWidget
+
+from recognizer.batch import BatchSettings
+from recognizer.model import DigitModel
+
+__all__ = ["ModelPanel", "RejectCurve", "reject_points", "RETRAIN_MISSING"]
+
+RETRAIN_MISSING = ("Retraining from this batch's corrections is not available in this version of Inkcount "
+                   "(the reading library has no retraining step for batches yet).")
+
+
+def reject_points(model: DigitModel) -> list[tuple[float, float]]:
+    """``(share sent to review, accuracy of the rest)`` from the model's held-out reject table."""
+    table = (model.metadata.get("evaluation") or {}).get("reject_table") or []
+    return [(float(r["rejected"]), 1.0 - float(r["residual_error"])) for r in table]
+
+
+class RejectCurve(QWidget):
+    """Accuracy of the digits accepted automatically against the share sent to a person."""
+
+    def __init__(self, parent=None) -> None:
+        super().__init__(parent)
+        self.points: list[tuple[float, float]] = []
+        self.target: float | None = None
+        self.setMinimumSize(320, 220)
+        self.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Expanding)
+        self.setAccessibleName("Accuracy against share checked by a person")
+
+    def set_curve(self, points: list[tuple[float, float]], target: float | None) -> None:
+        self.points, self.target = sorted(points), target
+        self.setToolTip("\n".join(f"{100 * x:.0f} % checked → {100 * y:.2f} % right" for x, y in self.points))
+        self.update()
+
+    def paintEvent(self, event) -> None:  # noqa: N802 (Qt name)
+        p = QPainter(self)
+        p.setRenderHint(QPainter.RenderHint.Antialiasing)
+        p.fillRect(self.rect(), QColor("white"))
+        plot = QRectF(62, 14, self.width() - 80, self.height() - 58)
+        small = QFont()
+        small.setPixelSize(11)
+        p.setFont(small)
+        if not self.points:
+            p.drawText(self.rect(), Qt.AlignmentFlag.AlignCenter, "This model file carries no held-out figures.")
+            p.end()
+            return
+        x_max = max(0.05, max(x for x, _ in self.points))
+        y_lo = min(y for _, y in self.points)
+        y_lo = max(0.0, min(y_lo, 1 - (self.target or 0)) - 0.002)
+
+        def at(x: float, y: float) -> QPointF:
+            return QPointF(plot.left() + plot.width() * x / x_max, plot.bottom() - plot.height() * (y - y_lo) / (1 - y_lo))
+
+        p.setPen(QPen(QColor("#DDDDDD"), 1))
+        for k in range(6):
+            y = y_lo + (1 - y_lo) * k / 5
+            p.drawLine(at(0, y), at(x_max, y))
+            x = x_max * k / 5
+            p.drawLine(at(x, y_lo), at(x, 1))
+        p.setPen(QPen(QColor("#333333"), 1))
+        p.drawRect(plot)
+        for k in range(6):
+            y = y_lo + (1 - y_lo) * k / 5
+            pt = at(0, y)
+            p.drawText(QRectF(0, pt.y() - 8, plot.left() - 6, 16), Qt.AlignmentFlag.AlignRight | Qt.AlignmentFlag.AlignVCenter,
+                       f"{100 * y:.1f} %")
+            x = x_max * k / 5
+            pt = at(x, y_lo)
+            p.drawText(QRectF(pt.x() - 30, plot.bottom() + 4, 60, 14), Qt.AlignmentFlag.AlignCenter, f"{100 * x:.0f} %")
+        p.drawText(QRectF(plot.left(), plot.bottom() + 20, plot.width(), 16), Qt.AlignmentFlag.AlignCenter,
+                   "share of digits sent to a person")
+        p.save()
+        p.translate(12, plot.center().y())
+        p.rotate(-90)
+        p.drawText(QRectF(-plot.height() / 2, -10, plot.height(), 16), Qt.AlignmentFlag.AlignCenter,
+                   "right among the rest")
+        p.restore()
+        if self.target is not None and 1 - self.target >= y_lo:
+            p.setPen(QPen(QColor("#D55E00"), 1.5, Qt.PenStyle.DashLine))
+            p.drawLine(at(0, 1 - self.target), at(x_max, 1 - self.target))
+            p.drawText(at(x_max * 0.5, 1 - self.target) + QPointF(0, -4),
+                       f"batch target: {100 * (1 - self.target):.2f} % right")
+        path = QPainterPath(at(*self.points[0]))
+        for x, y in self.points[1:]:
+            path.lineTo(at(x, y))
+        p.setPen(QPen(QColor("#0072B2"), 2.5))
+        p.drawPath(path)
+        p.setBrush(QColor("#0072B2"))
+        for x, y in self.points:
+            p.drawEllipse(at(x, y), 3.5, 3.5)
+        p.end()
+
+
+class ModelPanel(QWidget):
+    """The model of the batch, its figures, and Retrain."""
+
+    def __init__(self, parent=None) -> None:
+        super().__init__(parent)
+        layout = QVBoxLayout(self)
+        form = QFormLayout()
+        self.name = QLabel("–")
+        self.heldout = QLabel("–")
+        self.heldout.setWordWrap(True)
+        self.strictness = QLabel("–")
+        self.strictness.setWordWrap(True)
+        self.samples = QLabel("–")
+        form.addRow("Model reading this batch:", self.name)
+        form.addRow("Right on digits it never saw:", self.heldout)
+        form.addRow("Strictness of this batch:", self.strictness)
+        form.addRow("Checked digits to learn from:", self.samples)
+        layout.addLayout(form)
+        layout.addWidget(QLabel("<b>Accuracy against the share of digits a person checks</b> (held-out digits)"))
+        self.curve = RejectCurve()
+        layout.addWidget(self.curve, 1)
+        self.retrain_button = QPushButton("Retrain from this batch's corrections…")
+        self.retrain_button.setAccessibleName("Retrain")
+        self.retrain_button.setEnabled(False)
+        self.retrain_button.setToolTip(RETRAIN_MISSING)
+        layout.addWidget(self.retrain_button)
+        self.name.setAccessibleName("Model name")
+        self.heldout.setAccessibleName("Held-out accuracy")
+
+    def show_model(self, model: DigitModel | None, settings: BatchSettings | None, samples: int | None) -> None:
+        if model is None:
+            self.name.setText("–")
+            self.heldout.setText("–")
+            self.curve.set_curve([], None)
+            return
+        version = settings.model_version if settings and settings.model_version else model.version
+        self.name.setText(version + ("" if version == model.version else f" (loaded: {model.version})"))
+        ev = model.metadata.get("evaluation") or {}
+        if "accuracy" in ev:
+            self.heldout.setText(f"{100 * ev['accuracy']:.1f} % of {ev.get('n', '?'):,} digits"
+                                 f"<br><small>{ev.get('source', '')}</small>")
+        else:
+            self.heldout.setText("no held-out figures in the model file")
+        if settings is not None and settings.threshold is not None:
+            how = (f"target {100 * settings.target_error:.2f} % wrong among digits not checked"
+                   if settings.threshold_source == "target" else "confidence threshold set by hand")
+            self.strictness.setText(f"{how}; digits below {100 * settings.threshold:.2f} % sure go to a person")
+        else:
+            self.strictness.setText("not set yet (every digit is checked)")
+        self.samples.setText("–" if samples is None else f"{samples:,}")
+        self.curve.set_curve(reject_points(model), settings.target_error if settings else None)

@@ -1,0 +1,537 @@
+"""Checking fields one at a time, keyboard first.
+
+The panel shows one flagged field large: each box's crop, the value read (or
+typed) under it and a bar for the reader's confidence, with a strip of the
+page around the field for context.
+
+Keys (the panel has the focus)::
+
+    0-9         overwrite the box under the cursor and move on (the first key
+                replaces the value read in that box)
+    Delete      "no digit in this box"
+    Backspace   step back one box, restoring what was there
+    Left/Right  move the cursor without changing anything
+    Enter       save (confirm as it stands, or the value typed) and go to the next field
+    Ctrl+U, *   the field cannot be read
+    Ctrl+Z      undo the last action and go back to that field
+    PgDn/PgUp   next / previous field without saving
+    Esc         forget what was typed
+
+Every action goes through :mod:`recognizer.review` and is committed at once.
+The next fields' crops and page strips are prepared while the clerk looks at
+the current one, so moving on never waits for the disk.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from PySide6.QtCore import QRectF, QSize, Qt, QTimer, Signal
+from PySide6.QtGui import QColor, QFont, QPainter, QPen, QPixmap
+from PySide6.QtWidgets import (
+    QComboBox,
+    QFrame,
+    QHBoxLayout,
+    QLabel,
+    QSizePolicy,
+    QVBoxLayout,
+    QWidget,
+)
+
+from recognizer.batch import Batch, Change
+from recognizer.review import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, mark_unreadable, set_field, undo
+
+from .batch_access import FieldView, ImageCache, field_states, load_field
+from .look import CAUTION, STATE_MARKS, STATE_WORDS, colour, reasons_in_words
+
+__all__ = ["ReviewPanel", "BoxTile", "ORDER_CHOICES", "KEY_HELP"]
+
+#: Review orders offered, with their words.
+ORDER_CHOICES = (("page", "Page by page"), ("confidence", "Least sure first"))
+KEY_HELP = ("Type digits to overwrite · Enter save and next · Del no digit · Backspace step back · "
+            "Ctrl+U or * unreadable · Ctrl+Z undo · PgDn/PgUp skip")
+_PREFETCH = 4
+_LOW = QColor("#D55E00")
+_GOOD = QColor("#009E73")
+_CURSOR = QColor("#0072B2")
+
+
+class BoxTile(QWidget):
+    """One box of the field: crop, value and confidence bar, painted."""
+
+    SIZE = QSize(86, 150)
+
+    def __init__(self, parent=None) -> None:
+        super().__init__(parent)
+        self.setFixedSize(self.SIZE)
+        self.pixmap: QPixmap | None = None
+        self.text = ""
+        self.typed = False
+        self.cursor = False
+        self.flagged = False
+        self.blank = False
+        self.confidence: float | None = None
+
+    def paintEvent(self, event) -> None:  # noqa: N802 (Qt name)
+        p = QPainter(self)
+        p.setRenderHint(QPainter.RenderHint.Antialiasing)
+        w = self.width()
+        crop_rect = QRectF(3, 3, w - 6, w - 6)
+        p.fillRect(crop_rect, QColor("white"))
+        if self.pixmap is not None:
+            scaled = self.pixmap.scaled(crop_rect.size().toSize(), Qt.AspectRatioMode.KeepAspectRatio,
+                                        Qt.TransformationMode.SmoothTransformation)
+            p.drawPixmap(int(crop_rect.center().x() - scaled.width() / 2),
+                         int(crop_rect.center().y() - scaled.height() / 2), scaled)
+        if self.cursor:
+            p.setPen(QPen(_CURSOR, 4))
+        elif self.flagged:
+            p.setPen(QPen(_LOW, 3, Qt.PenStyle.DashLine))
+        else:
+            p.setPen(QPen(QColor("#999999"), 1))
+        p.drawRect(crop_rect)
+        if self.flagged:
+            p.setPen(_LOW)
+            f = QFont()
+            f.setBold(True)
+            f.setPixelSize(14)
+            p.setFont(f)
+            p.drawText(QRectF(crop_rect.right() - 16, crop_rect.top() + 1, 14, 16), Qt.AlignmentFlag.AlignCenter, "?")
+        f = QFont()
+        f.setPixelSize(30)
+        f.setBold(self.typed)
+        p.setFont(f)
+        p.setPen(_CURSOR if self.typed else self.palette().text().color())
+        text_rect = QRectF(0, w, w, 36)
+        p.drawText(text_rect, Qt.AlignmentFlag.AlignCenter, self.text if self.text else "–")
+        if self.confidence is not None and not self.blank:
+            bar = QRectF(6, w + 40, w - 12, 8)
+            p.setPen(QPen(QColor("#777777"), 1))
+            p.setBrush(Qt.BrushStyle.NoBrush)
+            p.drawRect(bar)
+            p.fillRect(QRectF(bar.left(), bar.top(), bar.width() * max(0.0, min(1.0, self.confidence)), bar.height()),
+                       _LOW if self.flagged else _GOOD)
+            f.setPixelSize(11)
+            f.setBold(False)
+            p.setFont(f)
+            p.setPen(self.palette().text().color())
+            p.drawText(QRectF(0, w + 48, w, 14), Qt.AlignmentFlag.AlignCenter, f"sure {100 * self.confidence:.1f} %")
+        p.end()
+
+
+@dataclass
+class _Edit:
+    """What the clerk typed into the field shown: one entry per box (None = untouched)."""
+
+    typed: list[str | None]
+    cursor: int = 0
+
+    @property
+    def touched(self) -> bool:
+        return any(t is not None for t in self.typed)
+
+
+class ReviewPanel(QFrame):
+    """The check panel. Call :meth:`set_batch`; it then follows the batch's changes.
+
+    Signals
+    -------
+    field_shown(field_id, page_id)
+        A field came on screen (the window shows its page).
+    message(text)
+        Something to tell the clerk (saved, refused, nothing left).
+    remaining_changed(count)
+        Fields still to check.
+    """
+
+    field_shown = Signal(int, int)
+    message = Signal(str)
+    remaining_changed = Signal(int)
+
+    def __init__(self, parent=None) -> None:
+        super().__init__(parent)
+        self.setFocusPolicy(Qt.FocusPolicy.StrongFocus)
+        self.setAccessibleName("Check fields")
+        self.setAccessibleDescription(KEY_HELP)
+        self.batch: Batch | None = None
+        self.cache: ImageCache | None = None
+        self.order = "page"
+        self.items: list[ReviewItem] = []
+        self._item_index: dict[int, int] = {}
+        self._open: set[int] = set()
+        self.index = -1
+        self.view: FieldView | None = None
+        self.edit = _Edit([])
+        self._strips: dict[int, QPixmap] = {}
+        self._build()
+
+    # ---- layout
+
+    def _build(self) -> None:
+        layout = QVBoxLayout(self)
+        top = QHBoxLayout()
+        self.counter = QLabel("Nothing to check")
+        self.counter.setAccessibleName("Fields left to check")
+        f = self.counter.font()
+        f.setBold(True)
+        f.setPointSize(f.pointSize() + 2)
+        self.counter.setFont(f)
+        top.addWidget(self.counter, 1)
+        top.addWidget(QLabel("Order:"))
+        self.order_box = QComboBox()
+        for key, words in ORDER_CHOICES:
+            self.order_box.addItem(words, key)
+        self.order_box.setAccessibleName("Review order")
+        self.order_box.setToolTip("Which field comes next: page by page, or the ones the reader is least sure of first")
+        self.order_box.currentIndexChanged.connect(lambda _: self.set_order(self.order_box.currentData()))
+        top.addWidget(self.order_box)
+        layout.addLayout(top)
+
+        self.place = QLabel("")
+        self.place.setWordWrap(True)
+        self.place.setAccessibleName("Field shown")
+        layout.addWidget(self.place)
+        self.strip = QLabel()
+        self.strip.setAlignment(Qt.AlignmentFlag.AlignCenter)
+        self.strip.setMinimumHeight(90)
+        self.strip.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Preferred)
+        self.strip.setAccessibleName("The page around this field")
+        layout.addWidget(self.strip)
+        self.tiles_row = QHBoxLayout()
+        self.tiles_row.setSpacing(6)
+        self.tiles_row.addStretch(1)
+        self.tiles_row.addStretch(1)
+        layout.addLayout(self.tiles_row)
+        self.tiles: list[BoxTile] = []
+        self.value_label = QLabel("")
+        self.value_label.setAlignment(Qt.AlignmentFlag.AlignCenter)
+        self.value_label.setAccessibleName("Value")
+        layout.addWidget(self.value_label)
+        keys = QLabel(KEY_HELP)
+        keys.setWordWrap(True)
+        keys.setStyleSheet("color: #505050;")
+        layout.addWidget(keys)
+        layout.addStretch(1)
+        caution = QLabel("⚠ " + CAUTION)
+        caution.setWordWrap(True)
+        caution.setAccessibleName("Caution")
+        caution.setStyleSheet("QLabel { background: #FFF4D6; color: #4A3B00; border: 1px solid #E69F00;"
+                              " padding: 6px; }")
+        layout.addWidget(caution)
+
+    # ---- batch and queue
+
+    def set_batch(self, batch: Batch | None, cache: ImageCache | None, *, order: str = "page",
+                  field_id: int | None = None) -> None:
+        """Follow ``batch``; start at ``field_id`` (restored place) or the first field to check."""
+        self.batch, self.cache = batch, cache
+        self._strips.clear()
+        self.order = order
+        self.order_box.blockSignals(True)
+        keys = [k for k, _ in ORDER_CHOICES]
+        self.order_box.setCurrentIndex(keys.index(order) if order in keys else 0)
+        self.order_box.blockSignals(False)
+        self.view, self.index = None, -1
+        self.reload_queue()
+        if batch is None:
+            self._show(None)
+        elif field_id is not None and field_states(batch, [field_id]):
+            self.show_field(field_id)
+        else:
+            self.next_field(from_start=True)
+
+    def reload_queue(self) -> None:
+        """Read the review queue again (after reading pages or a change of strictness)."""
+        if self.batch is None:
+            self.items, self._item_index, self._open = [], {}, set()
+        else:
+            self.items = ReviewQueue(self.batch, order=self.order).items()
+            self._item_index = {it.field_id: i for i, it in enumerate(self.items)}
+            self._open = set(self._item_index)
+        if self.view is not None:
+            self.index = self._item_index.get(self.view.field_id, self.index)
+        self._update_counter()
+
+    def set_order(self, order: str) -> None:
+        if order == self.order or self.batch is None:
+            self.order = order
+            return
+        self.order = order
+        current = self.view.field_id if self.view else None
+        self.reload_queue()
+        if current is not None:
+            self.index = self._item_index.get(current, -1)
+        self.setFocus()
+
+    @property
+    def remaining(self) -> int:
+        return len(self._open)
+
+    def _update_counter(self) -> None:
+        n = self.remaining
+        self.counter.setText("Nothing left to check" if n == 0 else f"{n} field{'s' if n != 1 else ''} left to check")
+        self.remaining_changed.emit(n)
+
+    def on_change(self, change: Change) -> None:
+        """Follow a committed change (from this panel, the sort wall or the reading worker)."""
+        if self.batch is None:
+            return
+        if change.kind in ("flags", "page"):
+            self.reload_queue()
+            if self.view is None:
+                self.next_field(from_start=True)
+            return
+        for fid, state in field_states(self.batch, change.field_ids).items():
+            if state == TO_CHECK and fid in self._item_index:
+                self._open.add(fid)
+            else:
+                self._open.discard(fid)
+        self._strips_keep()
+        self._update_counter()
+        if self.view is not None and self.view.field_id in change.field_ids and not self.edit.touched:
+            self._show(load_field(self.batch, self.view.field_id))
+
+    def _strips_keep(self) -> None:
+        if len(self._strips) > 64:
+            self._strips.clear()
+
+    # ---- moving
+
+    def next_field(self, *, from_start: bool = False, step: int = 1) -> None:
+        """Show the next field still to check after the current one (wrapping round)."""
+        if self.batch is None:
+            return
+        n = len(self.items)
+        if not self._open or n == 0:
+            self._show(None if self.view is None or self.view.field_id in self._open else
+                       load_field(self.batch, self.view.field_id))
+            self.message.emit("Nothing left to check in this batch.")
+            return
+        start = -1 if from_start and step > 0 else self.index
+        if from_start and step < 0:
+            start = n
+        for k in range(1, n + 1):
+            i = (start + step * k) % n
+            if self.items[i].field_id in self._open:
+                self.index = i
+                self.show_field(self.items[i].field_id)
+                return
+
+    def previous_field(self) -> None:
+        self.next_field(step=-1)
+
+    def show_field(self, field_id: int) -> None:
+        """Show any field (clicked on the page, or given back by undo)."""
+        if self.batch is None:
+            return
+        self.index = self._item_index.get(field_id, self.index)
+        self._show(load_field(self.batch, field_id))
+        QTimer.singleShot(0, self._prefetch)
+
+    def _show(self, view: FieldView | None) -> None:
+        self.view = view
+        self.edit = _Edit([None] * (len(view.slots) if view else 0))
+        if view is not None:
+            self.edit.cursor = 0
+        self._render()
+        if view is not None:
+            self.field_shown.emit(view.field_id, view.page_id)
+
+    # ---- drawing
+
+    def _render(self) -> None:
+        view = self.view
+        while len(self.tiles) < (len(view.digits) if view else 0):
+            tile = BoxTile(self)
+            self.tiles_row.insertWidget(len(self.tiles) + 1, tile)
+            self.tiles.append(tile)
+        for i, tile in enumerate(self.tiles):
+            tile.setVisible(view is not None and i < len(view.digits))
+        if view is None:
+            self.place.setText("")
+            self.strip.clear()
+            self.value_label.setText("")
+            return
+        item = self.items[self._item_index[view.field_id]] if view.field_id in self._item_index else None
+        why = reasons_in_words(item.why) if item is not None and view.state == TO_CHECK else ""
+        state = f"{STATE_MARKS[view.state]} {STATE_WORDS[view.state]}"
+        self.place.setText(f"<b>{view.place}</b> — {state}" + (f"<br>Why: {why}" if why else ""))
+        self.strip.setPixmap(self._strip(view).scaled(
+            max(200, self.strip.width() - 8), 110, Qt.AspectRatioMode.KeepAspectRatio,
+            Qt.TransformationMode.SmoothTransformation))
+        slots = {d.digit_id: k for k, d in enumerate(view.slots)}
+        for tile, d in zip(self.tiles, view.digits):
+            tile.pixmap = QPixmap.fromImage(self.cache.crop(d.digit_id)) if self.cache else None
+            k = slots.get(d.digit_id)
+            typed = None if k is None else self.edit.typed[k]
+            tile.typed = typed is not None
+            tile.text = typed if typed is not None else self._shown_value(view, d)
+            tile.cursor = k is not None and k == self.edit.cursor and self.hasFocus()
+            tile.flagged = d.state == TO_CHECK
+            tile.blank = d.blank
+            tile.confidence = None if d.blank else d.confidence
+            tile.setToolTip("empty box" if d.blank else f"read as {d.read}, {STATE_WORDS.get(d.state, d.state)}")
+            tile.update()
+        value = self.typed_value() if self.edit.touched else view.value
+        self.value_label.setText(f"<span style='font-size:18pt'>Value: <b>{value or '(empty)'}</b></span>"
+                                 + ("  <i>(typed, Enter saves)</i>" if self.edit.touched else ""))
+
+    @staticmethod
+    def _shown_value(view: FieldView, d) -> str:
+        if view.whole:
+            return ""
+        return d.value if d.value is not None else d.read
+
+    def _strip(self, view: FieldView) -> QPixmap:
+        if view.field_id in self._strips:
+            return self._strips[view.field_id]
+        image = self.cache.strip(view) if self.cache else None
+        pixmap = QPixmap(10, 10) if image is None else QPixmap.fromImage(image[0])
+        if image is not None:
+            left, top = image[1]
+            p = QPainter(pixmap)
+            p.setPen(QPen(_CURSOR, 4))
+            x0 = min(b[0] for b in view.boxes) - left
+            y0 = min(b[1] for b in view.boxes) - top
+            x1 = max(b[2] for b in view.boxes) - left
+            y1 = max(b[3] for b in view.boxes) - top
+            p.drawRect(QRectF(x0 - 5, y0 - 5, x1 - x0 + 10, y1 - y0 + 10))
+            p.end()
+        self._strips[view.field_id] = pixmap
+        return pixmap
+
+    def _prefetch(self) -> None:
+        """Decode the crops and page strips of the next fields while the clerk reads this one."""
+        if self.batch is None or not self.items:
+            return
+        n, done = len(self.items), 0
+        for k in range(1, n):
+            item = self.items[(self.index + k) % n]
+            if item.field_id not in self._open:
+                continue
+            view = load_field(self.batch, item.field_id)
+            for d in view.digits:
+                self.cache.crop(d.digit_id)
+            self._strip(view)
+            done += 1
+            if done >= _PREFETCH:
+                break
+
+    # ---- typing
+
+    def typed_value(self) -> str:
+        """The field's value as typed: typed boxes, the others as they stand; "not a digit" marks drop out."""
+        assert self.view is not None
+        out = []
+        for t, d in zip(self.edit.typed, self.view.slots):
+            v = t if t is not None else self._shown_value(self.view, d)
+            out.append("" if v in ("?", None) else v)
+        return "".join(out)
+
+    def type_digit(self, ch: str) -> None:
+        if self.view is None or not self.edit.typed:
+            return
+        if self.edit.cursor >= len(self.edit.typed):
+            self.message.emit("All boxes are filled: Enter saves, Backspace steps back.")
+            return
+        self.edit.typed[self.edit.cursor] = ch
+        self.edit.cursor += 1
+        self._render()
+
+    def step_back(self) -> None:
+        if self.view is None or self.edit.cursor == 0:
+            return
+        self.edit.cursor -= 1
+        self.edit.typed[self.edit.cursor] = None
+        self._render()
+
+    def move_cursor(self, step: int) -> None:
+        if self.view is not None and self.edit.typed:
+            self.edit.cursor = max(0, min(len(self.edit.typed) - 1, self.edit.cursor + step))
+            self._render()
+
+    def keyPressEvent(self, event) -> None:  # noqa: N802 (Qt name)
+        key, mods, text = event.key(), event.modifiers(), event.text()
+        ctrl = bool(mods & Qt.KeyboardModifier.ControlModifier)
+        if ctrl and key == Qt.Key.Key_Z:
+            self.undo_last()
+        elif ctrl and key == Qt.Key.Key_U or text == "*":
+            self.mark_unreadable()
+        elif not ctrl and text and text in "0123456789":
+            self.type_digit(text)
+        elif key in (Qt.Key.Key_Return, Qt.Key.Key_Enter):
+            self.save()
+        elif key == Qt.Key.Key_Backspace:
+            self.step_back()
+        elif key in (Qt.Key.Key_Delete, Qt.Key.Key_Minus) and self.view is not None:
+            self.type_digit("")
+        elif key == Qt.Key.Key_Left:
+            self.move_cursor(-1)
+        elif key == Qt.Key.Key_Right:
+            self.move_cursor(1)
+        elif key == Qt.Key.Key_PageDown:
+            self.next_field()
+        elif key == Qt.Key.Key_PageUp:
+            self.previous_field()
+        elif key == Qt.Key.Key_Escape:
+            self._show(self.view)
+        else:
+            super().keyPressEvent(event)
+
+    def focusInEvent(self, event) -> None:  # noqa: N802
+        super().focusInEvent(event)
+        self._render()
+
+    def focusOutEvent(self, event) -> None:  # noqa: N802
+        super().focusOutEvent(event)
+        self._render()
+
+    # ---- actions (each one committed by the library at once)
+
+    def save(self) -> None:
+        """Enter: confirm the field as it stands, or save what was typed; then go on."""
+        if self.batch is None or self.view is None:
+            return
+        fid = self.view.field_id
+        try:
+            if self.edit.touched:
+                value = self.typed_value()
+                set_field(self.batch, fid, value)
+                self.message.emit(f"Saved {self.view.name} = {value or '(empty)'}.")
+            else:
+                confirm(self.batch, field=fid)
+                self.message.emit(f"Confirmed {self.view.name} = {self.view.value or '(empty)'}.")
+        except ReviewError as exc:
+            self.message.emit(f"Not saved: {exc}")
+            return
+        self.edit = _Edit([])
+        self.next_field()
+
+    def mark_unreadable(self) -> None:
+        """Ctrl+U or *: the field cannot be read (it exports empty); then go on."""
+        if self.batch is None or self.view is None:
+            return
+        try:
+            mark_unreadable(self.batch, field=self.view.field_id)
+        except ReviewError as exc:
+            self.message.emit(f"Not saved: {exc}")
+            return
+        self.message.emit(f"Marked {self.view.name} unreadable.")
+        self.edit = _Edit([])
+        self.next_field()
+
+    def undo_last(self) -> None:
+        """Ctrl+Z: take back the last action and show that field again."""
+        if self.batch is None:
+            return
+        try:
+            action = undo(self.batch)
+        except ReviewError as exc:
+            self.message.emit(f"Cannot undo: {exc}")
+            return
+        if action is None:
+            self.message.emit("Nothing to undo.")
+            return
+        self.message.emit("Undone.")
+        self.show_field(action.field_id)
+
