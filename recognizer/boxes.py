@@ -24,11 +24,11 @@ Pipeline
    collinear segments less than ``min_box_mm`` apart are joined (a broken
    line).
 5. *Regions*: for two lines between ``0.9 * min_box_mm`` and ``max_box_mm``
-   apart with no other line across their band, a column of the band is a
-   wall where ink covers 90 % of its height, or 55 % reaching both lines (a
-   broken wall); walls are at most 1.2 mm thick.  The stretch between two
-   walls is a region when it is at most half ink and lines cover half of its
-   top and bottom edges.
+   apart, a column of the band between them is a wall where ink covers 90 %
+   of its height, or 55 % reaching both lines (a broken wall); walls are at most 1.2 mm thick.  The stretch between two
+   walls is a region when it is at most 70 % ink, no row of it is ink over
+   95 % of its width (a line across: the band of a label above a field) and
+   lines cover half of its top and bottom edges.
 
 Which regions are digit boxes
 -----------------------------
@@ -59,9 +59,10 @@ Which regions are digit boxes
 * *Checks*: lines must cover 70 % of a field's top and bottom edges; fields
   are kept in order of their count of well-formed boxes and may not overlap a
   field kept before.
-* *Lone boxes*: a field of one box is kept only when its width and height are
-  within 25 % of the median box of the page's fields of several boxes (of all
-  boxes if there are none); a lone tick box of a clearly different size is
+* *Small fields*: a field of one or two boxes is kept only when its boxes'
+  width and height are within 25 % of the median box of the page's fields of
+  three or more boxes (of all boxes if there are none): a lone tick box of a
+  clearly different size, or a pair of "boxes" in a printed emblem, is
   furniture, not a digit field.
 * *Warnings*: boxes placed where no region covered half of them (lost boxes
   inside a field or added at its ends), lines fainter than 80 grey levels
@@ -105,8 +106,8 @@ _BAND_MARGIN_MM = 0.25     # rows beside each line left out of the wall test
 _WALL_COVER = 0.9          # ink share of a column between two lines that makes a wall
 _BROKEN_WALL_COVER = 0.55  # ... or that makes a broken wall reaching both lines
 _MAX_WALL_MM = 1.2         # a wall or line is at most this thick
-_MAX_INK = 0.5             # a box region is mostly paper
-_CROSSING = 0.9            # a line this long between two lines splits their band
+_MAX_INK = 0.7             # a box region is not mostly ink
+_CROSSING = 0.95           # a region with a row this much ink has a line across it
 _LINE_FRACTION = 0.35      # opening length as a fraction of min_box_mm
 _ASPECT = (0.7, 1.8)       # height / width of a digit box
 _ALIGN = 0.12              # tops and bottoms agree within this part of the height
@@ -120,7 +121,8 @@ _MAX_EXTEND = 2            # boxes added at most at each end of a field
 _LINE_BAND_MM = 0.6        # band beside a region searched for its top or bottom line
 _SAME_WIDTH = 0.1          # boxes of one field agree in width within this part
 _WALL_TRACE = 0.5          # ink share of a column that marks the trace of a broken wall
-_LONE_TOLERANCE = 0.25     # lone box size tolerance against the page's boxes
+_SMALL_FIELD = 2           # fields of at most this many boxes must have the page's box size
+_SMALL_TOLERANCE = 0.25    # ... within this part
 _FAINT_LINES = 80          # median line darkness (grey levels) below this: "lines faint"
 
 
@@ -477,14 +479,15 @@ def _cells(ink: np.ndarray, lines: np.ndarray, px_per_mm: float, min_box_mm: flo
     """Regions between two horizontal lines and two walls, of digit box height.
 
     Collinear line segments are joined across gaps shorter than a box (broken
-    lines).  For every pair of lines lying a box height apart with no line
-    between them, the columns of the band between them are walls when ink
-    covers ``_WALL_COVER`` of the band's height (ignoring a thin margin at each
-    line), or ``_BROKEN_WALL_COVER`` of it reaching both lines; the stretches
-    between neighbouring walls are regions when they are mostly paper and the
-    lines run along most of their top and bottom edges.  A badly broken wall
-    may be missed (two boxes run together) and a straight stroke may pass for
-    a wall (a box split in two); fitting each field's row of boxes repairs both.
+    lines).  For every pair of lines lying a box height apart, the columns of
+    the band between them are walls when ink covers ``_WALL_COVER`` of the
+    band's height (ignoring a thin margin at each line), or
+    ``_BROKEN_WALL_COVER`` of it reaching both lines; the stretches between
+    neighbouring walls are regions when they are not mostly ink, no line runs
+    across them and the lines run along most of their top and bottom edges.
+    A badly broken wall may be missed (two boxes run together) and a straight
+    stroke may pass for a wall (a box split in two); fitting each field's row
+    of boxes repairs both.
     """
     lo, hi = 0.9 * min_box_mm * px_per_mm, max_box_mm * px_per_mm
     margin = max(1, int(round(_BAND_MARGIN_MM * px_per_mm)))
@@ -502,42 +505,50 @@ def _cells(ink: np.ndarray, lines: np.ndarray, px_per_mm: float, min_box_mm: flo
             if height > hi:
                 break
             xa, xb = max(top.x0, bottom.x0), min(top.x1, bottom.x1)
-            if height < lo or xb - xa < lo or _crossed(segments, top, bottom, xa, xb):
+            if height < lo or xb - xa < lo:
                 continue
             # the whole length of both lines (one may have lost its end), and the end walls
             xa = max(0, min(top.x0, bottom.x0) - band_px)
             xb = min(ink.shape[1], max(top.x1, bottom.x1) + band_px)
             band = ink[top.y1 + margin:bottom.y0 - margin, xa:xb] > 0
             for x0, x1 in _between_walls(band, max_wall):
+                inside = band[:, x0:x1]
                 r = _Rect(xa + x0, top.y1, xa + x1, bottom.y0)
-                if band[:, x0:x1].mean() <= _MAX_INK and _ruled(
-                        lines, r.x0, r.x1, r.y0, r.y1, band_px):
+                if (inside.mean() <= _MAX_INK and inside.mean(axis=1).max() < _CROSSING
+                        and _ruled(lines, r.x0, r.x1, r.y0, r.y1, band_px)):
                     rects.add(r)
     return sorted(rects, key=lambda r: (r.y0, r.x0))
-
-
-def _crossed(segments: list[_Rect], top: _Rect, bottom: _Rect, xa: int, xb: int) -> bool:
-    """Whether another line runs between ``top`` and ``bottom`` over most of ``xa..xb``."""
-    return any(top.y1 <= s.y0 and s.y1 <= bottom.y0
-               and min(s.x1, xb) - max(s.x0, xa) >= _CROSSING * (xb - xa)
-               for s in segments)
 
 
 def _between_walls(band: np.ndarray, max_wall: int) -> list[tuple[int, int]]:
     """Column ranges ``[x0, x1)`` between neighbouring walls of a (rows, columns) ink band.
 
-    A run of wall columns wider than ``max_wall`` is a dark blob, not a wall.
+    Whole walls and broken walls are found apart; a run of either wider than
+    ``max_wall`` is a dark blob (a bold digit against a wall), not a wall.
     """
     cover = band.mean(axis=0)
     ends = max(1, band.shape[0] // 30)
     reach = band[:ends].any(axis=0) & band[-ends:].any(axis=0)
     reach = reach | np.roll(reach, 1) | np.roll(reach, -1)
-    wall = (cover >= _WALL_COVER) | ((cover >= _BROKEN_WALL_COVER) & reach)
-    edges = np.flatnonzero(np.diff(np.concatenate([[0], wall.astype(np.int8), [0]])))
-    starts, stops = edges[0::2], edges[1::2]  # wall column runs [start, stop)
-    thin = stops - starts <= max_wall
-    starts, stops = starts[thin], stops[thin]
+    wall = _thin_runs(cover >= _WALL_COVER, max_wall)
+    wall |= _thin_runs((cover >= _BROKEN_WALL_COVER) & reach, max_wall)
+    starts, stops = _runs(wall)
     return [(int(a), int(b)) for a, b in zip(stops[:-1], starts[1:]) if b - a >= 2]
+
+
+def _runs(flags: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Starts and stops (exclusive) of the runs of True in a 1-D bool array."""
+    edges = np.flatnonzero(np.diff(np.concatenate([[0], flags.astype(np.int8), [0]])))
+    return edges[0::2], edges[1::2]
+
+
+def _thin_runs(flags: np.ndarray, max_len: int) -> np.ndarray:
+    """``flags`` with the runs longer than ``max_len`` cleared."""
+    out = np.zeros_like(flags)
+    for a, b in zip(*_runs(flags)):
+        if b - a <= max_len:
+            out[a:b] = True
+    return out
 
 
 # ---------------------------------------------------------------- fields
@@ -681,8 +692,9 @@ def _pitch_from_edges(part: list[_Rect], box: _Rect, w: float, h: float) -> floa
     For a chain with a single well-formed box: the outer walls of boxes cut in
     parts by strokes still bound regions, so their edges mark the row.
     """
-    lefts = np.array([r.x0 for r in part], float)
-    rights = np.array([r.x1 for r in part], float)
+    parts = [r for r in part if r.w >= 0.35 * w]  # not the strips between separate boxes
+    lefts = np.array([r.x0 for r in parts], float)
+    rights = np.array([r.x1 for r in parts], float)
     tol = max(2.0, 0.05 * w)
     best, best_score = w, -1.0
     for pitch in np.arange(w, w + _MAX_GAP * h + 1.0, 0.5):
@@ -774,7 +786,7 @@ def _group(rects: list[_Rect], lines: np.ndarray, ink: np.ndarray, px_per_mm: fl
         if boxes and _ruled(lines, boxes[0].x0, boxes[-1].x1, boxes[0].y0, boxes[0].y1, band,
                             _FIELD_RULED):
             fitted.append((boxes, n, pitch, sum(limits.fits(r) for r in part)))
-    fitted = _drop_odd_lone_boxes(fitted)
+    fitted = _drop_odd_small_fields(fitted)
     fields: list[list[_Rect]] = []
     placed = 0
     taken = np.zeros(lines.shape, bool)
@@ -830,20 +842,21 @@ def _extend(boxes: list[_Rect], pitch: float, ink: np.ndarray, band: int,
     return boxes, added
 
 
-def _drop_odd_lone_boxes(fitted: list[tuple]) -> list[tuple]:
-    """Keep a one-box field only when it matches the page's usual box size.
+def _drop_odd_small_fields(fitted: list[tuple]) -> list[tuple]:
+    """Keep a field of one or two boxes only when its boxes have the page's usual size.
 
     ``fitted`` holds ``(boxes, ...)`` tuples; the usual size is the median box of
-    the fields of several boxes, or of all fields when there are none.
+    the fields of more boxes, or of all fields when there are none.
     """
-    multi = [r for f in fitted if len(f[0]) > 1 for r in f[0]]
-    ref = multi or [r for f in fitted for r in f[0]]
+    big = [r for f in fitted if len(f[0]) > _SMALL_FIELD for r in f[0]]
+    ref = big or [r for f in fitted for r in f[0]]
     if not ref:
         return []
     w = float(np.median([r.w for r in ref]))
     h = float(np.median([r.h for r in ref]))
-    return [f for f in fitted if len(f[0]) > 1 or (
-        abs(f[0][0].w - w) <= _LONE_TOLERANCE * w and abs(f[0][0].h - h) <= _LONE_TOLERANCE * h)]
+    return [f for f in fitted if len(f[0]) > _SMALL_FIELD or all(
+        abs(r.w - w) <= _SMALL_TOLERANCE * w and abs(r.h - h) <= _SMALL_TOLERANCE * h
+        for r in f[0])]
 
 
 def _scale_box(r: _Rect, factor: float) -> Box:
