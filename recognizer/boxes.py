@@ -102,6 +102,7 @@ _SKEW_PX_PER_MM = 4.0      # resolution of the skew search (about 100 dpi)
 _LIGHT_PX_PER_MM = 1.0     # grid of the paper-level estimate
 _LIGHT_WINDOW_MM = 5.0     # grey closing window of the paper-level estimate
 _JOIN_MM = 2.0             # gaps between straight horizontal runs joined
+_POOL_MM = 0.3             # columns pooled when labelling line segments
 _BAND_MARGIN_MM = 0.25     # rows beside each line left out of the wall test
 _WALL_COVER = 0.9          # ink share of a column between two lines that makes a wall
 _BROKEN_WALL_COVER = 0.55  # ... or that makes a broken wall reaching both lines
@@ -438,24 +439,29 @@ class _Rect:
         return self.y1 - self.y0
 
 
-def _segments(lines: np.ndarray, min_len: float) -> list[_Rect]:
+def _segments(lines: np.ndarray, step: int) -> list[_Rect]:
     """Horizontal line segments: the rows of each run component covered over half its length.
 
-    Handwriting stuck to a line adds rows covered only in part, which are left out.
+    Components are labelled on the mask pooled over ``step`` columns (lines
+    run along the rows; x ends are known to ``step`` pixels).  Handwriting stuck
+    to a line adds rows covered only in part, which are left out.
     """
-    _, labels, stats, _ = cv2.connectedComponentsWithStats(lines, connectivity=8)
+    height, width = lines.shape
+    pooled = cv2.resize(lines, (max(1, width // step), height), interpolation=cv2.INTER_AREA)
+    pooled = (pooled > 0).astype(np.uint8)
+    scale = width / pooled.shape[1]
+    _, labels, stats, _ = cv2.connectedComponentsWithStats(pooled, connectivity=8)
     out = []
     for i, (x, y, w, h, _area) in enumerate(stats[1:], start=1):
-        if w < min_len:
-            continue
         cover = (labels[y:y + h, x:x + w] == i).mean(axis=1) >= 0.5
         rows = np.flatnonzero(cover)
         if rows.size == 0:
             continue
         starts = np.flatnonzero(np.diff(np.concatenate([[-2], rows])) > 1)
+        x0, x1 = int(round(x * scale)), min(width, int(round((x + w) * scale)))
         for k, start in enumerate(starts):
             end = starts[k + 1] if k + 1 < len(starts) else rows.size
-            out.append(_Rect(int(x), int(y + rows[start]), int(x + w), int(y + rows[end - 1] + 1)))
+            out.append(_Rect(x0, int(y + rows[start]), x1, int(y + rows[end - 1] + 1)))
     return out
 
 
@@ -493,7 +499,8 @@ def _cells(ink: np.ndarray, lines: np.ndarray, px_per_mm: float, min_box_mm: flo
     margin = max(1, int(round(_BAND_MARGIN_MM * px_per_mm)))
     band_px = max(2, int(round(_LINE_BAND_MM * px_per_mm)))
     max_wall = max(3, int(round(_MAX_WALL_MM * px_per_mm)))
-    segments = [r for r in _segments(lines, 0) if r.h <= max_wall]
+    step = max(1, int(round(_POOL_MM * px_per_mm)))
+    segments = [r for r in _segments(lines, step) if r.h <= max_wall]
     segments = _merge_collinear(segments, max(1, int(round(0.3 * px_per_mm))),
                                 min_box_mm * px_per_mm)
     segments = [r for r in segments if r.w >= lo]
