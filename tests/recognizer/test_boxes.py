@@ -10,7 +10,7 @@ from numpy.testing import assert_allclose
 from recognizer import formgen as fg
 from recognizer.boxes import Box, BoxFinding, find_fields
 
-# ---------------------------------------------------------------- helpers
+# ---------------------------------------------------------------- scans and checks
 
 
 def _scan(layout: fg.FormLayout, *, dpi: int, seed: int, jpeg: int | None = None,
