@@ -187,6 +187,7 @@ def _schema_v1(conn: sqlite3.Connection) -> None:
             boxes TEXT NOT NULL,
             read_value TEXT NOT NULL,
             gap INTEGER NOT NULL,
+            doubts TEXT NOT NULL DEFAULT '[]',
             value TEXT NOT NULL,
             whole INTEGER NOT NULL DEFAULT 0,
             resolution TEXT,
@@ -717,9 +718,9 @@ def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_v
     for position, f in enumerate(page.fields):
         boxes = json.dumps([[int(b.x0), int(b.y0), int(b.x1), int(b.y1)] for b in f.boxes])
         cur = conn.execute(
-            "INSERT INTO fields (page_id, position, name, boxes, read_value, gap, value, state) "
-            "VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-            (page_id, position, f.name, boxes, f.value, int(f.gap), f.value, READ),
+            "INSERT INTO fields (page_id, position, name, boxes, read_value, gap, doubts, value, state) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            (page_id, position, f.name, boxes, f.value, int(f.gap), json.dumps(list(f.doubts)), f.value, READ),
         )
         field_id = int(cur.lastrowid)
         conn.executemany(

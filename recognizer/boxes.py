@@ -64,9 +64,11 @@ Which regions are digit boxes
   three or more boxes (of all boxes if there are none): a lone tick box of a
   clearly different size, or a pair of "boxes" in a printed emblem, is
   furniture, not a digit field.
-* *Warnings*: boxes placed where no region covered half of them (lost boxes
-  inside a field or added at its ends), lines fainter than 80 grey levels
-  below the paper, and a skew beyond ``max_skew_deg``.
+* *Doubts*: a field to which boxes were added beyond its ends (its box count
+  rests on the neighbours' pitch) carries a doubt in ``FieldBoxes.doubts``;
+  boxes placed inside a field at its regular pitch (a wall covered by a
+  stroke) are not doubtful. Page *warnings* are lines fainter than 80 grey
+  levels below the paper and a skew beyond ``max_skew_deg``.
 
 Field order
 -----------
@@ -161,6 +163,7 @@ class FieldBoxes:
     name: str
     boxes: tuple[Box, ...]
     row: int
+    doubts: tuple[str, ...] = ()
 
 
 @dataclass
@@ -180,7 +183,9 @@ class BoxFinding:
     problem : str or None
         None when the page is usable, else the reason in plain words.
     warnings : list of str
-        Doubtful things met; a caller should have the page's fields checked.
+        Doubtful things about the whole page (faint lines, a skew beyond the
+        limit); a caller should have all the page's fields checked. Doubts
+        about one field are in that field's ``FieldBoxes.doubts``.
     transform : numpy.ndarray
         (2, 3) float64 affine map from page coordinates to ``image``
         coordinates (pixel edges).
@@ -191,7 +196,7 @@ class BoxFinding:
     skew_deg: float
     fields: list[FieldBoxes] = field(default_factory=list)
     problem: str | None = None
-    warnings: list[str] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)  # about the whole page
     transform: np.ndarray = field(default_factory=lambda: np.eye(2, 3), repr=False)
 
     def __bool__(self) -> bool:
@@ -317,15 +322,14 @@ def find_fields(page: np.ndarray, *, dpi: float, min_box_mm: float = 3.5,
     work_px_per_mm = px_per_mm * scale
     ink = _ink_mask(flat, paper - ink_step, work_px_per_mm)
     lines = _horizontal_lines(ink, work_px_per_mm, min_box_mm)
-    notes: list[str] = []
     rects = _cells(ink, lines, work_px_per_mm, min_box_mm, max_box_mm)
-    fields = _group(rects, lines, ink, work_px_per_mm, min_box_mm, max_box_mm, notes)
+    fields = _group(rects, lines, ink, work_px_per_mm, min_box_mm, max_box_mm)
     finding = BoxFinding(gray, dpi, skew, transform=transform)
     if not fields:
         finding.problem = "no digit boxes found on this page"
         return finding
-    finding.fields = _name_fields([[_scale_box(b, 1.0 / scale) for b in f] for f in fields])
-    finding.warnings = notes + _line_warnings(flat, lines, paper)
+    finding.fields = _name_fields([([_scale_box(b, 1.0 / scale) for b in f], d) for f, d in fields])
+    finding.warnings = _line_warnings(flat, lines, paper)
     if abs(found_skew) > max_skew_deg + 0.1:
         finding.warnings.append(f"the page may be skewed by more than {max_skew_deg:g} degrees")
     return finding
@@ -780,8 +784,13 @@ def _wall_trace(ink: np.ndarray, x: int, y0: int, y1: int, half: float) -> bool:
 
 
 def _group(rects: list[_Rect], lines: np.ndarray, ink: np.ndarray, px_per_mm: float,
-           min_box_mm: float, max_box_mm: float, notes: list[str]) -> list[list[_Rect]]:
-    """Chain regions into fields, fit each field's row of boxes, drop what is not a digit box."""
+           min_box_mm: float, max_box_mm: float) -> list[tuple[list[_Rect], tuple[str, ...]]]:
+    """Chain regions into fields, fit each field's row of boxes, drop what is not a digit box.
+
+    Returns each field's boxes with its doubts: boxes added beyond the ends
+    of a field change its box count, so such a field is doubtful; boxes
+    placed inside a field at its regular pitch are not.
+    """
     limits = _Limits(0.9 * min_box_mm * px_per_mm, max_box_mm * px_per_mm)
     band = max(2, int(round(_LINE_BAND_MM * px_per_mm)))
     chains = [part for chain in _chains(rects, lines, band)
@@ -794,24 +803,20 @@ def _group(rects: list[_Rect], lines: np.ndarray, ink: np.ndarray, px_per_mm: fl
                             _FIELD_RULED):
             fitted.append((boxes, n, pitch, sum(limits.fits(r) for r in part)))
     fitted = _drop_odd_small_fields(fitted)
-    fields: list[list[_Rect]] = []
-    placed = 0
+    fields: list[tuple[list[_Rect], tuple[str, ...]]] = []
     taken = np.zeros(lines.shape, bool)
     kept = []
     # fields seen with more well-formed boxes first; the others may not overlap them
-    for boxes, n, pitch, _ in sorted(fitted, key=lambda f: -f[3]):
+    for boxes, _, pitch, _ in sorted(fitted, key=lambda f: -f[3]):
         if not any(taken[b.y0:b.y1, b.x0:b.x1].any() for b in boxes):
             for b in boxes:
                 taken[b.y0:b.y1, b.x0:b.x1] = True
             kept.append((boxes, pitch))
-            placed += n
     for boxes, pitch in kept:
-        boxes, n = _extend(boxes, pitch, ink, band, taken)
-        fields.append(boxes)
-        placed += n
-    if placed:
-        notes.append(f"{placed} box{'es' if placed > 1 else ''} placed from the neighbouring "
-                     "boxes (walls broken or covered)")
+        boxes, added = _extend(boxes, pitch, ink, band, taken)
+        doubts = (f"{added} box{'es' if added > 1 else ''} at the end of the field added from the "
+                  "neighbouring boxes (walls broken or covered)",) if added else ()
+        fields.append((boxes, doubts))
     return fields
 
 
@@ -873,8 +878,11 @@ def _scale_box(r: _Rect, factor: float) -> Box:
                int(round(r.x1 * factor)), int(round(r.y1 * factor)))
 
 
-def _name_fields(fields: list[list[Box]]) -> list[FieldBoxes]:
+def _name_fields(found: list[tuple[list[Box], tuple[str, ...]]]) -> list[FieldBoxes]:
     """Order fields into rows and name them (see the module notes)."""
+    doubts = {id(f): d for f, d in found}
+    fields = [f for f, _ in found]
+
     def centre(f: list[Box]) -> float:
         return float(np.mean([b.centre[1] for b in f]))
 
@@ -891,7 +899,7 @@ def _name_fields(fields: list[list[Box]]) -> list[FieldBoxes]:
     named = []
     for row_index, row in enumerate(rows):
         for f in sorted(row, key=lambda f: f[0].x0):
-            named.append(FieldBoxes(f"f{len(named) + 1:0{width}d}", tuple(f), row_index))
+            named.append(FieldBoxes(f"f{len(named) + 1:0{width}d}", tuple(f), row_index, doubts[id(f)]))
     return named
 
 

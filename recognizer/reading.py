@@ -59,13 +59,18 @@ class DigitRead:
 
 @dataclass
 class FieldRead:
-    """One comb field: its boxes, the digit in each, and the value."""
+    """One comb field: its boxes, the digit in each, and the value.
+
+    ``doubts`` are reasons found while finding the boxes to distrust this
+    field's boxes (see :class:`recognizer.boxes.FieldBoxes`).
+    """
 
     name: str
     boxes: tuple[Box, ...]
     digits: list[DigitRead]
     value: str
     gap: bool
+    doubts: tuple[str, ...] = ()
 
     @property
     def written(self) -> list[DigitRead]:
@@ -77,7 +82,7 @@ class FieldRead:
 
     def to_check(self, threshold: float) -> bool:
         """Whether a person should look at this field."""
-        return self.gap or bool(self.doubtful_digits(threshold))
+        return self.gap or bool(self.doubts) or bool(self.doubtful_digits(threshold))
 
 
 @dataclass
@@ -174,7 +179,7 @@ class PageReader:
                 text = UNREADABLE_MARK if best == NOT_A_DIGIT else CLASSES[best]
                 digits.append(DigitRead(i, False, text, float(p[best]), p, cell.crop))
             value, gap = field_value([d.text for d in digits])
-            fields.append(FieldRead(boxes.name, tuple(boxes.boxes), digits, value, gap))
+            fields.append(FieldRead(boxes.name, tuple(boxes.boxes), digits, value, gap, tuple(boxes.doubts)))
         return PageRead(
             source, page, finding.dpi, finding.skew_deg, fields,
             warnings=list(finding.warnings), image=image,

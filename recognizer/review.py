@@ -26,8 +26,10 @@ Flagging rules
   or ``to check`` without reading anything again (digits a person has
   handled keep their state). A batch without a threshold flags everything.
 * A field is flagged when one of its digits is, when there is an empty box
-  between its written digits (a gap), when its page had warnings while its
-  boxes were found, or when its page's layout differs from the batch's.
+  between its written digits (a gap), when its own boxes were doubtful (boxes
+  added at its ends from the neighbours' pitch), when its page had warnings
+  while its boxes were found (faint lines, a skew beyond the limit), or when
+  its page's layout differs from the batch's.
 * A page's layout is its list of (field name, number of boxes). The batch's
   layout is the most common one among the pages read (on a tie, the one seen
   first); a page with another layout is flagged, i.e. all its fields are.
@@ -41,7 +43,7 @@ a person gave a digit) and the field-level decision a person made (its
 *resolution*: none, ``corrected``, ``confirmed`` or ``unreadable``), in this
 order: resolution ``unreadable`` -> ``unreadable``; any digit ``to check``
 -> ``to check``; any digit ``unreadable`` -> ``unreadable``; a field-level
-reason (gap, page warnings, layout) not yet resolved by a field action ->
+reason (gap, doubtful boxes, page warnings, layout) not yet resolved by a field action ->
 ``to check``; resolution or any digit ``corrected`` -> ``corrected``;
 resolution or any digit ``confirmed`` -> ``confirmed``; otherwise ``read``.
 A page's state combines its fields' the same way (``to check`` first, then
@@ -183,7 +185,7 @@ def field_state(digit_states: Iterable[str], *, flagged: bool, resolution: str |
     digit_states : iterable of str
         States of the written boxes.
     flagged : bool
-        A field-level reason to check it: a gap, page warnings, an odd layout.
+        A field-level reason to check it: a gap, doubtful boxes, page warnings, an odd layout.
     resolution : str or None
         The field-level decision of a person, if any.
     """
@@ -268,13 +270,13 @@ def refresh_states(
         boxes[row["field_id"]].append(row)
     updates = []
     for f in conn.execute(
-        f"SELECT f.id, f.gap, f.whole, f.resolution, f.value, f.state, p.warnings, p.odd_layout "
+        f"SELECT f.id, f.gap, f.doubts, f.whole, f.resolution, f.value, f.state, p.warnings, p.odd_layout "
         f"FROM fields f JOIN pages p ON p.id = f.page_id WHERE {where}",
         params,
     ):
         digits = boxes[f["id"]]
         value = f["value"] if f["whole"] else field_value([d["value"] or "" for d in digits])[0]
-        flagged = bool(f["gap"]) or f["warnings"] != "[]" or bool(f["odd_layout"])
+        flagged = bool(f["gap"]) or f["doubts"] != "[]" or f["warnings"] != "[]" or bool(f["odd_layout"])
         state = field_state(
             (d["state"] for d in digits if _counted(d["blank"], d["state"])),
             flagged=flagged, resolution=f["resolution"],
@@ -339,7 +341,7 @@ class ReviewItem:
 
 
 _FIELD_ITEMS = f"""
-SELECT f.id, f.name, f.position, f.value, f.read_value, f.gap, p.page, p.warnings, p.odd_layout,
+SELECT f.id, f.name, f.position, f.value, f.read_value, f.gap, f.doubts, p.page, p.warnings, p.odd_layout,
        fl.path, fl.id AS file_id,
        (SELECT MIN(d.confidence) FROM digits d WHERE d.field_id = f.id AND NOT d.blank) AS lowest,
        (SELECT COUNT(*) FROM digits d WHERE d.field_id = f.id AND d.state = '{TO_CHECK}'
@@ -367,6 +369,8 @@ def _field_reasons(row: sqlite3.Row) -> tuple[str, ...]:
         why.append("not a digit")
     if row["gap"]:
         why.append("gap")
+    if row["doubts"] != "[]":
+        why.append("boxes doubtful")
     if row["warnings"] != "[]":
         why.append("page warnings")
     if row["odd_layout"]:
@@ -387,7 +391,7 @@ class ReviewQueue:
     unit : {"field", "digit"}, optional
         Items are fields (default) or single digits; ``order="digit"`` always
         lists digits. The digit queue holds digits to check only: fields
-        flagged for a gap, page warnings or their layout are in the field queue.
+        flagged for a gap, doubtful boxes, page warnings or their layout are in the field queue.
 
     The queue reads the batch each time it is asked, so it follows changes.
     Iterating it goes on from the last item handed out, skipping anything

@@ -122,3 +122,18 @@ def test_sample_forms_read_with_the_right_fields(tmp_path, capsys):
         assert read["problem"] == ""
         right += sum(read[f] == row[f] for f in fields)
     print(f"\nsample forms: {right} of {len(truth) * len(fields)} fields read exactly before review")
+
+
+def test_read_into_a_batch_twice_reads_each_file_once(scan_folder, tmp_path, capsys):
+    batch = tmp_path / "harvest.inkcount"
+    assert main(["read", str(scan_folder), "--batch", str(batch), "--quiet"]) == 0
+    first = capsys.readouterr().out
+    assert "Read 3 page(s)" in first
+    copy = tmp_path / "again"
+    shutil.copytree(scan_folder, copy)  # the same files under other names
+    assert main(["read", str(copy), "--batch", str(batch), "--quiet"]) == 0
+    captured = capsys.readouterr()
+    assert "Read 0 page(s)" in captured.out
+    assert "already in the batch" in captured.err
+    assert main(["status", str(batch)]) == 0
+    assert "to check" in capsys.readouterr().out

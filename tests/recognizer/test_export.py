@@ -89,3 +89,13 @@ def test_digits_writer_one_row_per_written_digit(tmp_path):
     assert rows[1][:6] == ["a.png", "2", "f01", "2", "4", "0.8000"]
     assert rows[2][4] == "?" and float(rows[2][-1]) == pytest.approx(0.8)
     assert sum(float(x) for x in rows[1][6:]) == pytest.approx(1.0, abs=1e-3)
+
+
+def test_a_field_with_doubtful_boxes_is_to_check(tmp_path):
+    sure = _field("f01", ["1", "2"])
+    doubtful = _field("f02", ["3", "4"])
+    doubtful.doubts = ("1 box at the end of the field added from the neighbouring boxes",)
+    table = ValuesTable()
+    table.add_page(_page("a.png", 1, [sure, doubtful]), threshold=0.5)
+    table.write(tmp_path / "v.csv")
+    assert _read_csv(tmp_path / "v.csv")[1][-2] == "f02"
