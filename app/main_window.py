@@ -11,6 +11,7 @@ to the batch file by the library the moment it is made.
 from __future__ import annotations
 
 import base64
+import sys
 from pathlib import Path
 
 from PySide6.QtCore import QByteArray, Qt, QThread, QTimer, Signal
@@ -413,6 +414,7 @@ class MainWindow(QMainWindow):
         self.wall.set_batch(batch, self.cache)
         self._show_model()
         self._update_enabled()
+        self._restore_splitter()
         if self.review.view is None and self._page_items:
             self.pages.setCurrentItem(self.pages.topLevelItem(0))
         self.review.setFocus()
@@ -690,15 +692,23 @@ class MainWindow(QMainWindow):
         geometry = _unb64(self.settings.get("geometry"))
         if geometry is not None:
             self.restoreGeometry(geometry)
-        splitter = _unb64(self.settings.get("splitter"))
-        if splitter is not None:
-            self.splitter.restoreState(splitter)
+        self._splitter_restored = False
         self.tabs.setCurrentIndex(self.settings.get("tab"))
+
+    def _restore_splitter(self) -> None:
+        """The splitter's sizes, once it is on screen (sizes set while hidden do not hold)."""
+        if self._splitter_restored:
+            return
+        self._splitter_restored = True
+        state = _unb64(self.settings.get("splitter"))
+        if state is not None:
+            self.splitter.restoreState(state)
 
     def save_settings(self) -> str | None:
         """Write the window settings now; report (and return) the reason if that fails."""
         self.settings.set("geometry", _b64(self.saveGeometry()))
-        self.settings.set("splitter", _b64(self.splitter.saveState()))
+        if self._splitter_restored:
+            self.settings.set("splitter", _b64(self.splitter.saveState()))
         problem = self.settings.save()
         if problem:
             self.say(problem)
@@ -712,6 +722,6 @@ class MainWindow(QMainWindow):
         self.close_batch()
         self._save_timer.stop()
         problem = self.save_settings()
-        if problem:
-            QMessageBox.warning(self, "Settings not saved", problem)
+        if problem:  # the window is going: say it where it can still be read
+            print(f"inkcount window: {problem}", file=sys.stderr)
         super().closeEvent(event)
