@@ -1,0 +1,112 @@
+"""Render the main views offscreen to PNG files (for the documentation).
+
+``python -m app.screenshots [OUT_DIR]`` reads the sample forms into a
+temporary batch, checks a few fields so that every state shows, and writes
+``docs/screenshots/``: the start page, the batch with its page view, the
+check panel, the sort wall, the model panel, the strictness dialog and the
+export dialog. The images are reduced to a 256-colour palette to stay small.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import tempfile
+from pathlib import Path
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+
+from PIL import Image  # noqa: E402
+from PySide6.QtCore import QEventLoop, Qt  # noqa: E402
+from PySide6.QtTest import QTest  # noqa: E402
+from PySide6.QtWidgets import QApplication, QWidget  # noqa: E402
+
+ROOT = Path(__file__).resolve().parents[1]
+SCANS = ROOT / "sample_forms" / "scans"
+SIZE = (1440, 880)
+#: An invented folder shown in the pictures instead of wherever they are rendered.
+_SHOWN_FOLDER = Path("/home/clerk/weigh-ins")
+
+__all__ = ["render_all"]
+
+
+def _save(widget: QWidget, path: Path) -> Path:
+    QApplication.processEvents()
+    widget.grab().save(str(path))
+    Image.open(path).convert("RGB").quantize(256, dither=Image.Dither.NONE).save(path, optimize=True)
+    return path
+
+
+def render_all(out: Path) -> list[Path]:
+    """Write every screenshot into ``out``; return the paths."""
+    from .main_window import TAB_CHECK, TAB_MODEL, TAB_WALL, MainWindow
+    from .settings import WindowSettings
+
+    out.mkdir(parents=True, exist_ok=True)
+    app = QApplication.instance() or QApplication(sys.argv[:1])
+    app.setStyle("Fusion")
+    written = []
+    with tempfile.TemporaryDirectory() as tmp:
+        batch_path = Path(tmp) / "harvest-week-37.inkcount"
+        settings = WindowSettings(Path(tmp) / "window.json")
+        settings.add_recent(_SHOWN_FOLDER / "harvest-week-36.inkcount")
+        settings.add_recent(_SHOWN_FOLDER / "harvest-week-35.inkcount")
+        window = MainWindow(settings)
+        window.resize(*SIZE)
+        window.show()
+        written.append(_save(window, out / "start.png"))
+
+        loop = QEventLoop()
+        window.reading_done.connect(loop.quit)
+        window.open_scans([SCANS], batch_path=batch_path)
+        loop.exec()
+        panel = window.review
+        panel.setFocus()
+        QTest.keyClick(panel, Qt.Key.Key_Return)          # confirmed
+        QTest.keyClick(panel, Qt.Key.Key_Asterisk)        # unreadable
+        view = panel.view
+        QTest.keyClicks(panel, "1" if view.slots[0].read != "1" else "7")
+        QTest.keyClick(panel, Qt.Key.Key_Return)          # corrected
+        window.say("Saved.")
+        written.append(_save(window, out / "batch_page_view.png"))
+        QTest.keyClicks(panel, "0")  # typing in progress: the first box overwritten
+        written.append(_save(window.tabs, out / "check_panel.png"))
+        QTest.keyClick(panel, Qt.Key.Key_Escape)
+
+        window.show_tab(TAB_WALL)
+        wall = window.wall
+        group = max(wall.groups, key=wall.count)
+        lst = wall.groups[group]
+        lst.setFocus()
+        lst.setCurrentRow(0)
+        for row in (1, 2):
+            lst.item(row).setSelected(True)
+        written.append(_save(window, out / "sort_wall.png"))
+
+        window.show_tab(TAB_MODEL)
+        written.append(_save(window.tabs, out / "model_panel.png"))
+        window.show_tab(TAB_CHECK)
+
+        dialog = window.strictness_dialog()
+        dialog.target.setValue(0.5)
+        written.append(_save(dialog, out / "strictness_dialog.png"))
+        dialog.reject()
+
+        dialog = window.export_dialog()
+        dialog.path.setText(str(_SHOWN_FOLDER / "harvest-week-37.csv"))
+        written.append(_save(dialog, out / "export_dialog.png"))
+        dialog.reject()
+        window.close()
+    return written
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = sys.argv[1:] if argv is None else argv
+    out = Path(args[0]) if args else ROOT / "docs" / "screenshots"
+    for path in render_all(out):
+        print(f"{path}  {path.stat().st_size // 1024} KB")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

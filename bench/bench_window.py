@@ -1,0 +1,109 @@
+"""How fast the window opens a 500-page batch and moves from one field to the next.
+
+Builds the batch quickly: one sample card is read once, and its result is
+stored 500 times under invented file names through the batch library
+(``Batch.add_file`` / ``Batch.add_result``), so the batch has real images,
+crops and review states without reading 500 scans. Then it times, offscreen:
+
+* opening the window on the batch (until the first field to check is shown);
+* Enter on a field (confirm, committed to the file) until the next field is shown;
+* PgDn (skip) until the next field is shown;
+* building the sort wall (every digit to check).
+
+Targets: open under 2 s, next field under 50 ms.
+
+Run: ``python bench/bench_window.py [--pages 500] [--steps 60]``
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+
+from PySide6.QtCore import Qt  # noqa: E402
+from PySide6.QtTest import QTest  # noqa: E402
+from PySide6.QtWidgets import QApplication  # noqa: E402
+
+from recognizer.batch import Batch  # noqa: E402
+from recognizer.model import load_model  # noqa: E402
+from recognizer.reading import PageReader  # noqa: E402
+from recognizer.review import set_target_error  # noqa: E402
+from recognizer.scan import load_page  # noqa: E402
+
+ROOT = Path(__file__).resolve().parents[1]
+CARD = ROOT / "sample_forms" / "scans" / "card_01.png"
+
+
+def build_batch(path: Path, pages: int) -> float:
+    """Store ``pages`` copies of one read card; return the seconds it took."""
+    t0 = time.perf_counter()
+    model = load_model()
+    result = PageReader(model, keep_image=True).read(load_page(CARD, 1))
+    with Batch.create(path) as batch:
+        for i in range(pages):
+            file_id = batch.add_file(f"synthetic/card_{i + 1:04d}.png", f"{i:064x}", 0)
+            batch.add_result(file_id, result, model_version=model.version)
+            batch.mark_complete([file_id])
+        set_target_error(batch, 0.001, model=model)
+    return time.perf_counter() - t0
+
+
+def _ms(values: list[float]) -> str:
+    return (f"median {1000 * statistics.median(values):.1f} ms, 90th pct "
+            f"{1000 * sorted(values)[int(0.9 * (len(values) - 1))]:.1f} ms, max {1000 * max(values):.1f} ms")
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--pages", type=int, default=500)
+    parser.add_argument("--steps", type=int, default=60)
+    args = parser.parse_args(argv)
+    app = QApplication.instance() or QApplication(sys.argv[:1])
+    from app.main_window import MainWindow
+    from app.settings import WindowSettings
+
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "bench.inkcount"
+        built = build_batch(path, args.pages)
+        size = path.stat().st_size / 1e6
+        print(f"batch: {args.pages} pages, {size:.0f} MB, built in {built:.1f} s")
+        window = MainWindow(WindowSettings(Path(tmp) / "window.json"))
+        window.resize(1400, 860)
+        window.show()
+        app.processEvents()
+        t0 = time.perf_counter()
+        window.open_batch(path)
+        app.processEvents()
+        opened = time.perf_counter() - t0
+        panel = window.review
+        print(f"open window on the batch: {opened:.2f} s (target < 2 s); "
+              f"{panel.remaining} fields to check, {window.pages.topLevelItemCount()} pages listed")
+        panel.setFocus()
+        for key, words in ((Qt.Key.Key_PageDown, "skip (PgDn)"), (Qt.Key.Key_Return, "confirm and next (Enter)")):
+            times = []
+            for _ in range(args.steps):
+                app.processEvents()  # the prefetch of the next fields runs here, as while a clerk looks
+                before = panel.view.field_id
+                t = time.perf_counter()
+                QTest.keyClick(panel, key)
+                times.append(time.perf_counter() - t)
+                assert panel.view.field_id != before
+            print(f"next field after {words}: {_ms(times)} over {args.steps} (target < 50 ms)")
+        t = time.perf_counter()
+        window.show_tab(1)
+        app.processEvents()
+        digits = sum(window.wall.count(g) for g in window.wall.groups)
+        print(f"sort wall built: {time.perf_counter() - t:.2f} s for {digits} digits to check")
+        window.close()
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
