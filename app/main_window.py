@@ -41,7 +41,6 @@ from recognizer.batch import SUFFIX, Batch, BatchFileError, BatchInUseError, Cha
 from recognizer.model import DigitModel, ModelFileError, load_model
 from recognizer.scan import SCAN_SUFFIXES, ScanProblem, list_scans
 
-from . import qt_refcount_guard
 from .batch_access import ChangeRelay, ImageCache, SharedBatch, page_fields, page_summaries
 from .dialogs import ExportDialog, StrictnessDialog
 from .look import CAUTION, SHORT_CAUTION, STATE_MARKS, STATE_WORDS, colour
@@ -86,7 +85,6 @@ class MainWindow(QMainWindow):
 
     def __init__(self, settings: WindowSettings | None = None) -> None:
         super().__init__()
-        qt_refcount_guard.install()
         self.settings = settings or WindowSettings()
         self.batch: SharedBatch | None = None
         self.model: DigitModel | None = None
