@@ -45,7 +45,12 @@ read_value, gap, value, whole, resolution, state)``; ``digits(field, box,
 blank, prediction, confidence, model_version, value, state, probs,
 crop_png)`` — one row per box, empty ones included, the blobs last for the
 same reason; ``actions(time, reviewer, kind, field, digit, old_value,
-new_value, before JSON, undoes, undone_by)``. The meaning of the states and
+new_value, before JSON, undoes, undone_by)``.
+
+Version 2 adds ``pages.template`` (name and version of the form template that
+read the page, ``orchard_card v1``; NULL without a template),
+``pages.registration_score`` and ``fields.rule_problems`` (JSON list of the
+template rules the value read breaks, each ``"<rule>: <what>"``). The meaning of the states and
 of ``value``/``whole``/``resolution`` is in :mod:`recognizer.review`.
 
 One writer at a time
@@ -227,8 +232,21 @@ def _schema_v1(conn: sqlite3.Connection) -> None:
     )
 
 
+def _schema_v2(conn: sqlite3.Connection) -> None:
+    """Version 2: the form template (name and version) and registration score of each page
+    read with a template, and the rules each field's value breaks."""
+    _run_script(
+        conn,
+        """
+        ALTER TABLE pages ADD COLUMN template TEXT;
+        ALTER TABLE pages ADD COLUMN registration_score REAL;
+        ALTER TABLE fields ADD COLUMN rule_problems TEXT NOT NULL DEFAULT '[]';
+        """
+    )
+
+
 #: Schema steps in order: ``MIGRATIONS[i]`` brings a file from version i to i + 1.
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_schema_v1]
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_schema_v1, _schema_v2]
 #: Schema version written by this program.
 SCHEMA_VERSION = len(MIGRATIONS)
 
@@ -705,11 +723,12 @@ def _insert_problem(conn: sqlite3.Connection, file_id: int, problem: ScanProblem
 def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_version: str | None) -> int:
     layout = None if page.problem else json.dumps([[f.name, len(f.boxes)] for f in page.fields])
     cur = conn.execute(
-        "INSERT INTO pages (file_id, page, dpi, skew_deg, problem, warnings, layout, read_at) "
-        "VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+        "INSERT INTO pages (file_id, page, dpi, skew_deg, problem, warnings, layout, read_at, template, "
+        "registration_score) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
         (
             file_id, page.page, float(page.dpi), float(page.skew_deg),
             page.problem, json.dumps(list(page.warnings)), layout, timestamp(),
+            page.template, page.registration_score,
         ),
     )
     page_id = int(cur.lastrowid)
@@ -718,9 +737,10 @@ def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_v
     for position, f in enumerate(page.fields):
         boxes = json.dumps([[int(b.x0), int(b.y0), int(b.x1), int(b.y1)] for b in f.boxes])
         cur = conn.execute(
-            "INSERT INTO fields (page_id, position, name, boxes, read_value, gap, doubts, value, state) "
-            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-            (page_id, position, f.name, boxes, f.value, int(f.gap), json.dumps(list(f.doubts)), f.value, READ),
+            "INSERT INTO fields (page_id, position, name, boxes, read_value, gap, doubts, value, state, "
+            "rule_problems) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            (page_id, position, f.name, boxes, f.value, int(f.gap), json.dumps(list(f.doubts)), f.value, READ,
+             json.dumps(f.rule_problems)),
         )
         field_id = int(cur.lastrowid)
         conn.executemany(

@@ -6,6 +6,9 @@ Sub-commands:
     Read the digit boxes of scan files and folders into a CSV.
 ``inkcount model train|evaluate ...``
     Build or check the digit model (see :mod:`recognizer.cli_model`).
+``inkcount template new|check ...``
+    Draft and check form templates (see :mod:`recognizer.cli_template`);
+    ``inkcount read --template card.json`` reads with them.
 """
 
 from __future__ import annotations
@@ -20,12 +23,14 @@ from . import __version__
 from .batch import Batch, BatchFileError, ingest_scans
 from .cli_batch import add_batch_commands
 from .cli_model import add_model_commands
+from .cli_template import add_template_commands
 from .export import DigitsWriter, ValuesTable
 from .model import ModelFileError, load_model
 from .pipeline import ReadSettings, read_scans
 from .reading import PageRead
 from .review import DEFAULT_TARGET_ERROR, set_target_error, set_threshold
 from .scan import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, ScanProblem, count_pages, list_scans
+from .template import TemplateFileError, load_template
 
 __all__ = ["main", "build_parser", "COMMANDS_GROUP"]
 
@@ -52,6 +57,7 @@ def build_parser() -> argparse.ArgumentParser:
     _add_read_command(sub)
     add_batch_commands(sub)
     add_model_commands(sub)
+    add_template_commands(sub)
     for entry in entry_points(group=COMMANDS_GROUP):
         entry.load()(sub)
     return parser
@@ -71,6 +77,9 @@ def _add_read_command(sub) -> None:
     p.add_argument("--recursive", "-r", action="store_true", help="look in sub-folders too")
     p.add_argument("--workers", "-j", type=_positive_int, default=1, metavar="N", help="pages read in parallel by N processes (default 1)")
     p.add_argument("--model", type=Path, metavar="FILE", help="digit model file (default: the model shipped with Inkcount)")
+    p.add_argument("--template", "-t", type=Path, action="append", default=[], metavar="FILE",
+                   help="form template (from 'inkcount template new'); repeat for several designs: each page "
+                   "is read with the template it fits best, and a page that fits none is reported")
     strict = p.add_mutually_exclusive_group()
     strict.add_argument(
         "--target-error", type=_percent, metavar="PERCENT",
@@ -164,11 +173,18 @@ def run_read(args: argparse.Namespace) -> int:
     except ModelFileError as exc:
         _err(str(exc))
         return 2
+    try:
+        for path in args.template:
+            load_template(path)
+    except TemplateFileError as exc:
+        _err(str(exc))
+        return 2
     files, listing_problems = list_scans(args.scans, recursive=args.recursive)
     settings = ReadSettings(
         model_path=str(args.model) if args.model else None,
         pdf_dpi=args.pdf_dpi,
         max_pixels=args.max_pixels,
+        template_paths=tuple(str(p) for p in args.template),
     )
     with ExitStack() as stack:
         batch = None

@@ -10,6 +10,13 @@ columns empty), then ``to_check`` (the fields of the row a person should look
 at, separated by spaces) and ``problem`` (why a file or page could not be
 read; such rows have no values).
 
+Pages read with a form template (:mod:`recognizer.template`) carry the
+template's field names and typed values (``18.7``, ``2026-09-13``; fields in
+the template's order), and the table gains two columns: ``template`` after
+``page`` (the template's name and version that read the page, ``orchard_card
+v1``) and ``rule_problems`` before ``problem`` (the rules a value breaks, as
+``field: rule: what``, separated by `` | ``).
+
 Digits table columns: ``file, page, field, box`` (box numbered from 1, left to
 right), ``digit`` (``?`` for a mark read as "not a digit"), ``confidence``,
 ``p0`` … ``p9`` (the probability of each digit) and ``p_not_digit``. Empty
@@ -52,32 +59,45 @@ class ValuesTable:
     """
 
     def __init__(self) -> None:
-        self.rows: list[tuple[str, str, dict[str, str], list[str], str]] = []
-        self.fields: set[str] = set()
+        self.rows: list[tuple[str, str, dict[str, str], list[str], str, str, str]] = []
+        self.fields: dict[str, int] = {}  # name -> order first seen
+        self.templated = False
 
     def add_page(self, page: PageRead, *, threshold: float) -> None:
+        self.templated |= page.template is not None
         if not page:
-            self.rows.append((str(page.source), str(page.page), {}, [], page.problem or ""))
+            self.rows.append((str(page.source), str(page.page), {}, [], page.problem or "", "", ""))
             return
-        values = {f.name: f.value for f in page.fields}
-        self.fields.update(values)
+        values = {f.name: f.output for f in page.fields}
+        for name in values:
+            self.fields.setdefault(name, len(self.fields))
         check = [f.name for f in page.fields if page.warnings or f.to_check(threshold)]
-        self.rows.append((str(page.source), str(page.page), values, check, ""))
+        rules = " | ".join(f"{f.name}: {p}" for f in page.fields for p in f.rule_problems)
+        self.rows.append((str(page.source), str(page.page), values, check, "", page.template or "", rules))
 
     def add_problem(self, problem: ScanProblem) -> None:
         page = "" if problem.page is None else str(problem.page)
-        self.rows.append((str(problem.source), page, {}, [], problem.reason))
+        self.rows.append((str(problem.source), page, {}, [], problem.reason, "", ""))
+
+    def _names(self) -> list[str]:
+        return sorted(self.fields, key=lambda n: (field_sort_key(n)[0], self.fields[n]))
 
     def header(self) -> list[str]:
-        return ["file", "page", *sorted(self.fields, key=field_sort_key), "to_check", "problem"]
+        if self.templated:
+            return ["file", "page", "template", *self._names(), "to_check", "rule_problems", "problem"]
+        return ["file", "page", *self._names(), "to_check", "problem"]
 
     def write(self, path: str | os.PathLike) -> None:
-        names = sorted(self.fields, key=field_sort_key)
+        names = self._names()
         with open_csv(path) as fh:
             w = _writer(fh)
             w.writerow(self.header())
-            for file, page, values, check, problem in self.rows:
-                w.writerow([file, page, *(values.get(n, "") for n in names), " ".join(check), problem])
+            for file, page, values, check, problem, template, rules in self.rows:
+                cells = [values.get(n, "") for n in names]
+                if self.templated:
+                    w.writerow([file, page, template, *cells, " ".join(check), rules, problem])
+                else:
+                    w.writerow([file, page, *cells, " ".join(check), problem])
 
 
 DIGIT_COLUMNS = (

@@ -23,18 +23,24 @@ from pathlib import Path
 from .model import DigitModel, load_model
 from .reading import PageRead, PageReader
 from .scan import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, ScanProblem, count_pages, iter_pages, load_page
+from .template import load_template
 
 __all__ = ["ReadSettings", "read_scans", "PageJob", "page_jobs"]
 
 
 @dataclass(frozen=True)
 class ReadSettings:
-    """How pages are loaded and read (plain values, so it can go to a worker)."""
+    """How pages are loaded and read (plain values, so it can go to a worker).
+
+    ``template_paths`` are form template files (:mod:`recognizer.template`);
+    with any, every page is read with the template it fits best.
+    """
 
     model_path: str | None = None
     pdf_dpi: float = DEFAULT_PDF_DPI
     max_pixels: int = DEFAULT_MAX_PIXELS
     keep_image: bool = False
+    template_paths: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -94,7 +100,7 @@ def read_scans(
     if workers < 1:
         raise ValueError(f"workers must be at least 1, got {workers}")
     if workers == 1:
-        reader = PageReader(model or load_model(settings.model_path), keep_image=settings.keep_image)
+        reader = _reader(model or load_model(settings.model_path), settings)
         if skip is None:
             for item in iter_pages(files, pdf_dpi=settings.pdf_dpi, max_pixels=settings.max_pixels):
                 yield item if isinstance(item, ScanProblem) else reader.read(item)
@@ -103,6 +109,11 @@ def read_scans(
                 yield job if isinstance(job, ScanProblem) else _read_job(reader, job, settings)
         return
     yield from _read_in_pool(files, settings, workers, skip)
+
+
+def _reader(model: DigitModel, settings: ReadSettings) -> PageReader:
+    templates = [load_template(p) for p in settings.template_paths]
+    return PageReader(model, keep_image=settings.keep_image, templates=templates)
 
 
 def _read_job(reader: PageReader, job: PageJob, settings: ReadSettings) -> PageRead | ScanProblem:
@@ -118,7 +129,7 @@ _worker_settings: ReadSettings | None = None
 def _init_worker(settings: ReadSettings) -> None:
     global _worker_reader, _worker_settings
     _worker_settings = settings
-    _worker_reader = PageReader(load_model(settings.model_path), keep_image=settings.keep_image)
+    _worker_reader = _reader(load_model(settings.model_path), settings)
 
 
 def _worker_read(job: PageJob) -> PageRead | ScanProblem:
@@ -127,9 +138,11 @@ def _worker_read(job: PageJob) -> PageRead | ScanProblem:
 
 
 def _read_in_pool(files, settings: ReadSettings, workers: int, skip) -> Iterator[PageRead | ScanProblem]:
-    # Load the model once here first so that a bad model file is one clear
-    # error, not one per worker.
+    # Load the model and templates once here first so that a bad file is one
+    # clear error, not one per worker.
     load_model(settings.model_path)
+    for path in settings.template_paths:
+        load_template(path)
     pending: deque[Future | ScanProblem] = deque()
     with ProcessPoolExecutor(max_workers=workers, initializer=_init_worker, initargs=(settings,)) as pool:
         try:

@@ -19,6 +19,7 @@ calls "not a digit" stands in the value as ``?``.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -27,7 +28,9 @@ import numpy as np
 from .boxes import Box, BoxFinding, find_fields
 from .cells import Cell, cut_cells
 from .model import CLASSES, NOT_A_DIGIT, DigitModel
+from .registration import Registrar, match_templates
 from .scan import Page
+from .template import Template, check_page
 
 __all__ = ["UNREADABLE_MARK", "DigitRead", "FieldRead", "PageRead", "PageReader", "field_value"]
 
@@ -62,7 +65,10 @@ class FieldRead:
     """One comb field: its boxes, the digit in each, and the value.
 
     ``doubts`` are reasons found while finding the boxes to distrust this
-    field's boxes (see :class:`recognizer.boxes.FieldBoxes`).
+    field's boxes (see :class:`recognizer.boxes.FieldBoxes`). A page read
+    with a template gives each field its ``typed`` value (see
+    :func:`recognizer.template.typed_value`) and the ``rule_problems`` its
+    value has, each ``"<rule>: <what>"``; both are None / empty otherwise.
     """
 
     name: str
@@ -71,6 +77,8 @@ class FieldRead:
     value: str
     gap: bool
     doubts: tuple[str, ...] = ()
+    typed: str | None = None
+    rule_problems: list[str] = field(default_factory=list)
 
     @property
     def written(self) -> list[DigitRead]:
@@ -82,7 +90,13 @@ class FieldRead:
 
     def to_check(self, threshold: float) -> bool:
         """Whether a person should look at this field."""
-        return self.gap or bool(self.doubts) or bool(self.doubtful_digits(threshold))
+        return (self.gap or bool(self.doubts) or bool(self.rule_problems)
+                or bool(self.doubtful_digits(threshold)))
+
+    @property
+    def output(self) -> str:
+        """The value for the CSV: the typed value when read with a template, else the digits."""
+        return self.value if self.typed is None else self.typed
 
 
 @dataclass
@@ -91,7 +105,10 @@ class PageRead:
 
     ``problem`` is set (and ``fields`` empty) when no digit boxes could be
     found; ``warnings`` list doubtful things met while finding the boxes, in
-    which case every field of the page should be checked.
+    which case every field of the page should be checked. A page read with
+    templates records the ``template`` that read it (its name and version,
+    ``orchard_card v1``) and the ``registration_score``; a page that fits
+    none of them has the problem set and ``template`` None.
     """
 
     source: Path
@@ -102,6 +119,8 @@ class PageRead:
     problem: str | None = None
     warnings: list[str] = field(default_factory=list)
     image: np.ndarray | None = None
+    template: str | None = None
+    registration_score: float | None = None
 
     def __bool__(self) -> bool:
         return self.problem is None
@@ -137,16 +156,39 @@ class PageReader:
     keep_image : bool
         Keep the deskewed page image on each :class:`PageRead` (the batch
         store and the window need it; a plain CSV run does not).
+    templates : sequence of Template
+        Form templates: each page is registered to the one it fits best and
+        read at that template's boxes (the page image kept is then the page
+        aligned to the template's reference). Without templates the boxes
+        are found on each page.
     """
 
-    def __init__(self, model: DigitModel, *, keep_image: bool = False):
+    def __init__(self, model: DigitModel, *, keep_image: bool = False,
+                 templates: Sequence[Template] = ()):
         self.model = model
         self.keep_image = keep_image
+        self.registrars = [Registrar(t) for t in templates]
 
     def read(self, page: Page) -> PageRead:
         """Read one page; never raises on odd page content."""
+        if self.registrars:
+            return self._read_with_template(page)
         finding = find_fields(page.image, dpi=page.dpi)
         return self.read_finding(finding, source=page.source, page=page.page)
+
+    def _read_with_template(self, page: Page) -> PageRead:
+        match = match_templates(page.image, dpi=page.dpi, registrars=self.registrars)
+        score = match.registration.score
+        if not match:
+            return PageRead(page.source, page.page, page.dpi, match.registration.rotation_deg, [],
+                            problem=match.problem, registration_score=score)
+        assert match.template is not None and match.finding is not None
+        read = self.read_finding(match.finding, source=page.source, page=page.page)
+        read.template, read.registration_score = match.template.label, score
+        values = check_page(match.template, {f.name: [d.text for d in f.digits] for f in read.fields})
+        for f in read.fields:
+            f.typed, f.rule_problems = values[f.name].text, values[f.name].problems
+        return read
 
     def read_finding(self, finding: BoxFinding, *, source: Path, page: int) -> PageRead:
         """Read the fields of a page whose boxes have been found."""

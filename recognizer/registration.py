@@ -425,13 +425,10 @@ def _aligned_finding(gray: np.ndarray, dpi: float, template: Template, reg: Regi
     image = cv2.warpAffine(gray, _edge_to_index(out_to_page[:2]), size,
                            flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
                            borderMode=cv2.BORDER_CONSTANT, borderValue=255)
-    fields = [FieldBoxes(f.name, map_boxes(f.boxes, factor=factor), 0) for f in template.fields]
-    finding = BoxFinding(image, dpi, reg.rotation_deg, fields,
-                         transform=np.linalg.inv(out_to_page)[:2])
-    outside = [f.name for f in template.fields if not _on_page(reg, f.boxes, gray.shape)]
-    if outside:
-        finding.warnings.append(f"field(s) {', '.join(outside)} lie partly outside the scan")
-    return finding
+    outside = ("the field lies partly outside the scan",)
+    fields = [FieldBoxes(f.name, map_boxes(f.boxes, factor=factor), 0,
+                         () if _on_page(reg, f.boxes, gray.shape) else outside) for f in template.fields]
+    return BoxFinding(image, dpi, reg.rotation_deg, fields, transform=np.linalg.inv(out_to_page)[:2])
 
 
 def _on_page(reg: Registration, boxes: Sequence[Box], shape: tuple[int, int]) -> bool:

@@ -270,13 +270,15 @@ def refresh_states(
         boxes[row["field_id"]].append(row)
     updates = []
     for f in conn.execute(
-        f"SELECT f.id, f.gap, f.doubts, f.whole, f.resolution, f.value, f.state, p.warnings, p.odd_layout "
+        f"SELECT f.id, f.gap, f.doubts, f.rule_problems, f.whole, f.resolution, f.value, f.state, p.warnings, "
+        f"p.odd_layout "
         f"FROM fields f JOIN pages p ON p.id = f.page_id WHERE {where}",
         params,
     ):
         digits = boxes[f["id"]]
         value = f["value"] if f["whole"] else field_value([d["value"] or "" for d in digits])[0]
-        flagged = bool(f["gap"]) or f["doubts"] != "[]" or f["warnings"] != "[]" or bool(f["odd_layout"])
+        flagged = (bool(f["gap"]) or f["doubts"] != "[]" or f["rule_problems"] != "[]"
+                   or f["warnings"] != "[]" or bool(f["odd_layout"]))
         state = field_state(
             (d["state"] for d in digits if _counted(d["blank"], d["state"])),
             flagged=flagged, resolution=f["resolution"],
@@ -341,7 +343,8 @@ class ReviewItem:
 
 
 _FIELD_ITEMS = f"""
-SELECT f.id, f.name, f.position, f.value, f.read_value, f.gap, f.doubts, p.page, p.warnings, p.odd_layout,
+SELECT f.id, f.name, f.position, f.value, f.read_value, f.gap, f.doubts, f.rule_problems, p.page, p.warnings,
+       p.odd_layout,
        fl.path, fl.id AS file_id,
        (SELECT MIN(d.confidence) FROM digits d WHERE d.field_id = f.id AND NOT d.blank) AS lowest,
        (SELECT COUNT(*) FROM digits d WHERE d.field_id = f.id AND d.state = '{TO_CHECK}'
@@ -371,6 +374,7 @@ def _field_reasons(row: sqlite3.Row) -> tuple[str, ...]:
         why.append("gap")
     if row["doubts"] != "[]":
         why.append("boxes doubtful")
+    why.extend(f"rule {p}" for p in json.loads(row["rule_problems"]))
     if row["warnings"] != "[]":
         why.append("page warnings")
     if row["odd_layout"]:
