@@ -43,7 +43,7 @@ def make_pages(folder: Path, n: int, dpi: int) -> None:
                                    writer=Writer.random(rng), rng=rng)
         form = formgen.scan_distort(form, rng=rng, skew_deg=float(rng.uniform(-2, 2)),
                                     noise=0.02, blur=0.6, lighting=0.2)
-        formgen.save_scan(form.image, folder / f"page{i + 1:03d}.png", dpi=dpi)
+        formgen.save_scan(form.image, folder / f"page{i + 1:03d}.png", dpi=dpi, optimize=False)
 
 
 def time_decode(folder: Path) -> float:

@@ -99,7 +99,7 @@ __all__ = ["Box", "FieldBoxes", "BoxFinding", "find_fields"]
 
 MM_PER_INCH = 25.4
 
-_WORK_DPI = 300.0          # boxes are searched at no more than this resolution
+_WORK_DPI = 200.0          # boxes are searched at no more than this resolution
 _SKEW_PX_PER_MM = 4.0      # resolution of the skew search (about 100 dpi)
 _LIGHT_PX_PER_MM = 1.0     # grid of the paper-level estimate
 _LIGHT_WINDOW_MM = 5.0     # grey closing window of the paper-level estimate
@@ -303,23 +303,24 @@ def find_fields(page: np.ndarray, *, dpi: float, min_box_mm: float = 3.5,
         return BoxFinding(gray, dpi, 0.0, problem=(
             f"the image ({gray.shape[1]} x {gray.shape[0]} px at {dpi:g} dpi) is too small "
             "to hold digit boxes"))
-    flat = _flatten_lighting(gray, px_per_mm)
+    # Everything but the deskewed page itself is worked out at no more than
+    # _WORK_DPI; boxes found there are scaled back to the page.
+    scale = min(1.0, _WORK_DPI / dpi)
+    small = gray if scale == 1.0 else cv2.resize(gray, None, fx=scale, fy=scale, interpolation=cv2.INTER_AREA)
+    work_px_per_mm = px_per_mm * scale
+    flat = _flatten_lighting(small, work_px_per_mm)
     paper, ink_step = _ink_step(flat)
     if ink_step is None:
         return BoxFinding(gray, dpi, 0.0, problem="the page is blank (no ink found)")
 
-    found_skew = _estimate_skew(flat, paper - ink_step, px_per_mm, max_skew_deg)
+    found_skew = _estimate_skew(flat, paper - ink_step, work_px_per_mm, max_skew_deg)
     skew = float(np.clip(found_skew, -max_skew_deg, max_skew_deg))
     transform = np.eye(2, 3)
     if abs(skew) >= 0.02:
         transform = _rotation(gray.shape, -skew)
         gray = _warp(gray, transform)
-        flat = _warp(flat, transform)
+        flat = _warp(flat, _rotation(flat.shape, -skew))
 
-    scale = min(1.0, _WORK_DPI / dpi)
-    if scale < 1.0:
-        flat = cv2.resize(flat, None, fx=scale, fy=scale, interpolation=cv2.INTER_AREA)
-    work_px_per_mm = px_per_mm * scale
     ink = _ink_mask(flat, paper - ink_step, work_px_per_mm)
     lines = _horizontal_lines(ink, work_px_per_mm, min_box_mm)
     rects = _cells(ink, lines, work_px_per_mm, min_box_mm, max_box_mm)
@@ -365,7 +366,9 @@ def _ink_mask(flat: np.ndarray, threshold: float, px_per_mm: float) -> np.ndarra
     """(M, N) uint8 ink mask (255 = ink) after a light smoothing against noise."""
     sigma = 0.1 * px_per_mm
     smooth = cv2.GaussianBlur(flat, (0, 0), sigma) if sigma >= 0.5 else flat
-    return np.where(smooth < threshold, np.uint8(255), np.uint8(0))
+    # uint8 values below ``threshold`` are those at or below ceil(threshold) - 1
+    _, mask = cv2.threshold(smooth, math.ceil(threshold) - 1, 255, cv2.THRESH_BINARY_INV)
+    return mask
 
 
 # ---------------------------------------------------------------- skew

@@ -722,7 +722,7 @@ _PIL_FORMATS = {".png": "PNG", ".jpg": "JPEG", ".jpeg": "JPEG", ".tif": "TIFF",
 
 
 def save_scan(image_or_pages: np.ndarray | Sequence[np.ndarray], path: str | Path, *,
-              dpi: int, quality: int = 90) -> None:
+              dpi: int, quality: int = 90, optimize: bool = True) -> None:
     """Write one page or several as a scan file; the format follows the suffix.
 
     Parameters
@@ -737,6 +737,9 @@ def save_scan(image_or_pages: np.ndarray | Sequence[np.ndarray], path: str | Pat
     quality : int
         JPEG quality (also for the JPEG-coded pages inside a PDF).  PDFs carry
         no dates, so saving the same pages again gives the same bytes.
+    optimize : bool
+        Spend time on the smallest PNG or JPEG (the committed sample scans);
+        False writes a 300-dpi page many times faster (benchmarks).
     """
     path = Path(path)
     fmt = _PIL_FORMATS.get(path.suffix.lower())
@@ -754,11 +757,11 @@ def save_scan(image_or_pages: np.ndarray | Sequence[np.ndarray], path: str | Pat
         options = {"resolution": float(dpi), "quality": quality, "creationDate": None,
                    "modDate": None, "creator": "Inkcount"}
     elif fmt == "JPEG":
-        options = {"dpi": (dpi, dpi), "quality": quality, "optimize": True}
+        options = {"dpi": (dpi, dpi), "quality": quality, "optimize": optimize}
     elif fmt == "TIFF":
         options = {"dpi": (dpi, dpi), "compression": "tiff_adobe_deflate"}
     elif fmt == "PNG":
-        options = {"dpi": (dpi, dpi), "optimize": True}
+        options = {"dpi": (dpi, dpi), "optimize": optimize}
     else:
         options = {"dpi": (dpi, dpi)}
     if len(images) > 1:
