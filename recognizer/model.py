@@ -16,7 +16,15 @@ One ``.npz`` archive, read with ``np.load(path, allow_pickle=False)``:
   member ``i`` (float32 or float16), shapes as listed in the metadata layout;
 * ``calib_threshold``, ``calib_residual`` -- the validation curve behind
   :meth:`DigitModel.threshold_for` (ascending confidence thresholds and the
-  residual error among the digits kept at each threshold);
+  estimated residual error among the digits kept at each threshold; how it
+  was estimated is in the metadata entry ``calibration``);
+* ``replay_images``, ``replay_labels`` (format version 2, optional) -- a
+  small stratified sample of the training digits, uint8 (n, 28, 28) white
+  ink on black and uint8 (n,), mixed into fine-tuning
+  (:mod:`recognizer.retrain`) so that a retrained model does not forget;
+* ``validation_images``, ``validation_labels`` (version 2, optional) -- the
+  validation digits behind the calibration, same types, so that a
+  fine-tuned model can be calibrated again on the same evidence;
 * ``metadata`` -- a 0-d unicode array holding a JSON object: format name and
   version, classes, input size, preprocessing, temperature, ensemble layout,
   training data and provenance, training settings, evaluation figures,
@@ -41,7 +49,7 @@ CLASSES: tuple[str, ...] = tuple(str(d) for d in range(10)) + ("not_a_digit",)
 NOT_A_DIGIT: int = 10
 
 FORMAT_NAME = "inkcount-digit-model"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
 CELL_SIZE = 28
 PREPROCESSING = (
     "clip to 0..1 (white ink on black, MNIST layout 28x28)",
@@ -53,6 +61,8 @@ MNIST_CREDIT = (
     "Christopher J.C. Burges; commonly distributed under CC BY-SA 3.0"
 )
 _CURVE_ARRAYS = ("calib_threshold", "calib_residual")
+_DIGIT_SETS = ("replay", "validation")
+_DIGIT_ARRAYS = tuple(f"{k}_{a}" for k in _DIGIT_SETS for a in ("images", "labels"))
 _MAX_SHEAR = 1.0
 
 
@@ -158,6 +168,11 @@ class DigitModel:
         Everything stored in the file's JSON entry.
     classes : tuple of str
         Class names, index 10 is ``"not_a_digit"``.
+    replay_images, replay_labels : ndarray or None
+        (n, 28, 28) uint8 training digits kept for fine-tuning (white ink on
+        black) and their (n,) uint8 labels 0..9.
+    validation_images, validation_labels : ndarray or None
+        The validation digits of the calibration, same types.
     """
 
     members: list[list[tuple[np.ndarray, np.ndarray]]]
@@ -166,6 +181,10 @@ class DigitModel:
     curve_residual: np.ndarray = field(default_factory=lambda: np.zeros(0))
     metadata: dict[str, Any] = field(default_factory=dict)
     classes: tuple[str, ...] = CLASSES
+    replay_images: np.ndarray | None = None
+    replay_labels: np.ndarray | None = None
+    validation_images: np.ndarray | None = None
+    validation_labels: np.ndarray | None = None
 
     @property
     def version(self) -> str:
@@ -254,6 +273,11 @@ class DigitModel:
                 arrays[f"m{i}_b{j}"] = np.asarray(b)
         arrays["calib_threshold"] = np.asarray(self.curve_threshold, dtype=np.float64)
         arrays["calib_residual"] = np.asarray(self.curve_residual, dtype=np.float64)
+        for kind in _DIGIT_SETS:
+            images, labels = getattr(self, f"{kind}_images"), getattr(self, f"{kind}_labels")
+            if images is not None:
+                arrays[f"{kind}_images"] = np.asarray(images, dtype=np.uint8)
+                arrays[f"{kind}_labels"] = np.asarray(labels, dtype=np.uint8)
         return arrays
 
     def save(self, path: str | Path) -> None:
@@ -314,6 +338,8 @@ def load_model(path: str | Path | None = None) -> DigitModel:
             raise ModelFileError(path, f"missing array {name!r}")
         if arrays[name].ndim != 1 or arrays[name].shape != arrays[_CURVE_ARRAYS[0]].shape:
             raise ModelFileError(path, f"wrong shape {arrays[name].shape} for {name!r}")
+    for kind in _DIGIT_SETS:
+        _check_digit_set(path, arrays, kind)
     if _digest(arrays) != meta.get("weights_sha256"):
         raise ModelFileError(path, "checksum mismatch: the weights were altered or damaged")
     try:
@@ -329,7 +355,23 @@ def load_model(path: str | Path | None = None) -> DigitModel:
         curve_residual=arrays["calib_residual"],
         metadata=meta,
         classes=tuple(meta["classes"]),
+        **{name: arrays.get(name) for name in _DIGIT_ARRAYS},
     )
+
+
+def _check_digit_set(path: Path, arrays: dict[str, np.ndarray], kind: str) -> None:
+    """A stored digit set comes as a pair: uint8 (n, 28, 28) images and n uint8 labels 0..9."""
+    names = (f"{kind}_images", f"{kind}_labels")
+    present = [name for name in names if name in arrays]
+    if not present:
+        return
+    if len(present) == 1:
+        raise ModelFileError(path, f"{present[0]!r} without its partner array")
+    images, labels = arrays[names[0]], arrays[names[1]]
+    if images.dtype != np.uint8 or images.ndim != 3 or images.shape[1:] != (CELL_SIZE, CELL_SIZE):
+        raise ModelFileError(path, f"{names[0]!r} must be uint8 (n, 28, 28), got {images.dtype} {images.shape}")
+    if labels.dtype != np.uint8 or labels.shape != (len(images),) or (labels.size and labels.max() > 9):
+        raise ModelFileError(path, f"{names[1]!r} must be {len(images)} uint8 digits 0..9")
 
 
 def _read_arrays(path: Path) -> dict[str, np.ndarray]:
@@ -396,7 +438,7 @@ def _read_members(
         if expected_in != len(CLASSES):
             raise ModelFileError(path, f"member {i} ends with {expected_in} outputs, expected {len(CLASSES)}")
         members.append(layers)
-    extra = set(arrays) - set(_CURVE_ARRAYS) - {
+    extra = set(arrays) - set(_CURVE_ARRAYS) - set(_DIGIT_ARRAYS) - {
         f"m{i}_{k}{j}" for i, s in enumerate(layout) for j in range(len(s)) for k in "Wb"
     }
     if extra:

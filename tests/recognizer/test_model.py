@@ -148,6 +148,20 @@ def test_load_refuses_bad_files(tmp_path: Path, change, message: str) -> None:
     assert "bad.npz" in str(info.value)
 
 
+def test_digit_sets_round_trip_and_come_in_pairs(tmp_path: Path) -> None:
+    model = _tiny_model()
+    model.replay_images = np.arange(2 * 784, dtype=np.uint8).reshape(2, 28, 28)
+    model.replay_labels = np.array([3, 9], np.uint8)
+    path = tmp_path / "m.npz"
+    model.save(path)
+    again = load_model(path)
+    assert_allclose(again.replay_images, model.replay_images)
+    assert again.validation_images is None
+    _rewrite(path, lambda a: a.pop("replay_labels"))
+    with pytest.raises(ModelFileError, match="without its partner"):
+        load_model(path)
+
+
 def test_load_refuses_truncated_and_missing(tmp_path: Path) -> None:
     path = tmp_path / "cut.npz"
     _tiny_model().save(path)

@@ -9,7 +9,15 @@ from sklearn.neural_network import MLPClassifier
 
 from recognizer.junk import KINDS, junk_marks, printed_digits
 from recognizer.model import NOT_A_DIGIT, DigitModel, deskew
-from recognizer.training import augment, export_member, fit_temperature, quick_model, residual_curve
+from recognizer.training import (
+    augment,
+    export_member,
+    fit_offset_and_temperature,
+    fit_temperature,
+    quick_model,
+    residual_curve,
+    smoothed_residual_curve,
+)
 
 
 @pytest.fixture(scope="module")
@@ -89,3 +97,25 @@ def test_residual_curve_literal() -> None:
     thr, res = residual_curve(conf, correct)
     assert_allclose(thr, [0.5, 0.7, 0.9, 0.99])
     assert_allclose(res, [1 / 5, 0, 0, 0])
+
+
+def test_smoothed_residual_curve_follows_a_known_error_rate() -> None:
+    rng = np.random.default_rng(4)
+    conf = 1 - 10 ** rng.uniform(-4, -0.5, 20000)
+    p_wrong = 1 / (1 + np.exp(0.3 - 0.9 * np.log(1 - conf)))  # known error model, a = -0.3, b = 0.9
+    correct = rng.random(conf.size) >= p_wrong
+    thr, res, fit = smoothed_residual_curve(conf, correct)
+    assert np.all(np.diff(thr) > 0) and np.all(np.diff(res) <= 1e-15)
+    assert (fit["intercept"], fit["slope"]) == pytest.approx((-0.3, 0.9), abs=0.1)
+    for t in (0.9, 0.99, 0.999):
+        assert np.interp(t, thr, res) == pytest.approx(np.mean(p_wrong[conf >= t]), rel=0.25)
+    thr, res, _ = smoothed_residual_curve(conf, np.ones(conf.size, bool))
+    assert_allclose(res, 0.0)  # no error seen: nothing to fit
+
+
+def test_offset_fit_follows_the_junk_prior(digits) -> None:
+    images, labels = digits
+    model = quick_model(images, labels, seed=1)
+    junk = junk_marks(100, rng=np.random.default_rng(8))
+    offsets = [fit_offset_and_temperature(model.members, images, labels, junk, prior=p)[0] for p in (0.3, 0.01)]
+    assert offsets[0] < offsets[1]  # rarer junk: a larger penalty on the not-a-digit class
