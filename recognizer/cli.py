@@ -14,6 +14,7 @@ Sub-commands:
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
 from contextlib import ExitStack
 from importlib.metadata import entry_points
@@ -259,6 +260,8 @@ def _threshold(args: argparse.Namespace, model, batch: Batch | None) -> float:
 
 
 def main(argv: list[str] | None = None) -> int:
+    if hasattr(signal, "SIGPIPE"):  # `inkcount review --list | head` ends quietly
+        signal.signal(signal.SIGPIPE, signal.SIG_DFL)
     parser = build_parser()
     args = parser.parse_args(argv)
     return int(args.func(args) or 0)
