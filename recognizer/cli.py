@@ -260,12 +260,17 @@ def _threshold(args: argparse.Namespace, model, batch: Batch | None) -> float:
 
 
 def main(argv: list[str] | None = None) -> int:
-    if hasattr(signal, "SIGPIPE"):  # `inkcount review --list | head` ends quietly
-        signal.signal(signal.SIGPIPE, signal.SIG_DFL)
     parser = build_parser()
     args = parser.parse_args(argv)
     return int(args.func(args) or 0)
 
 
-if __name__ == "__main__":  # pragma: no cover
+def run() -> None:
+    """The ``inkcount`` console command."""
+    if hasattr(signal, "SIGPIPE"):  # `inkcount review --list | head` ends quietly
+        signal.signal(signal.SIGPIPE, signal.SIG_DFL)
     sys.exit(main())
+
+
+if __name__ == "__main__":  # pragma: no cover
+    run()
