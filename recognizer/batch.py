@@ -50,8 +50,17 @@ new_value, before JSON, undoes, undone_by)``.
 Version 2 adds ``pages.template`` (name and version of the form template that
 read the page, ``orchard_card v1``; NULL without a template),
 ``pages.registration_score`` and ``fields.rule_problems`` (JSON list of the
-template rules the value read breaks, each ``"<rule>: <what>"``). The meaning of the states and
-of ``value``/``whole``/``resolution`` is in :mod:`recognizer.review`.
+template rules the value read breaks, each ``"<rule>: <what>"``).
+
+Version 3 keeps the templates themselves: ``templates(name, version, json,
+added)`` holds the JSON of every template that read a page of the batch
+(keyed by name and version, as ``pages.template`` names them), so the rules
+are checked again after a review and the export types the values without the
+template file; ``fields.typed`` is the field's value as its template types it
+(``18.7``, ``2026-09-13``), NULL without a template. Pages read into a version
+2 file keep NULL there (their template was not kept): they export their digits.
+The meaning of the states and of ``value``/``whole``/``resolution`` is in
+:mod:`recognizer.review`.
 
 One writer at a time
 --------------------
@@ -83,6 +92,7 @@ import os
 import socket
 import sqlite3
 import sys
+import threading
 from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field
@@ -93,11 +103,14 @@ import cv2
 import numpy as np
 
 from . import __version__
+from .boxes import Box
+from .cells import cut_cell
 from .model import NOT_A_DIGIT, DigitModel, load_model
 from .pipeline import ReadSettings, read_scans
 from .reading import PageRead
 from .review import DEFAULT_TARGET_ERROR, READ, Change, refresh_layout, refresh_states, timestamp
 from .scan import ScanProblem
+from .template import Template, load_template, template_from_json, template_to_json
 
 __all__ = [
     "APPLICATION_ID",
@@ -245,8 +258,25 @@ def _schema_v2(conn: sqlite3.Connection) -> None:
     )
 
 
+def _schema_v3(conn: sqlite3.Connection) -> None:
+    """Version 3: the templates that read pages, kept in the batch, and each field's typed value."""
+    _run_script(
+        conn,
+        """
+        CREATE TABLE templates (
+            name TEXT NOT NULL,
+            version INTEGER NOT NULL,
+            json TEXT NOT NULL,
+            added TEXT NOT NULL,
+            PRIMARY KEY (name, version)
+        );
+        ALTER TABLE fields ADD COLUMN typed TEXT;
+        """
+    )
+
+
 #: Schema steps in order: ``MIGRATIONS[i]`` brings a file from version i to i + 1.
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_schema_v1, _schema_v2]
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_schema_v1, _schema_v2, _schema_v3]
 #: Schema version written by this program.
 SCHEMA_VERSION = len(MIGRATIONS)
 
@@ -449,12 +479,20 @@ class Batch:
 
     Observers registered with :meth:`subscribe` are called with a
     :class:`Change` after every committed change.
+
+    Two threads of one process may share an open batch (a worker reading
+    scans while the window shows and reviews): every query (:meth:`rows`) and
+    every write :meth:`transaction` holds the batch's lock, so a query never
+    runs in the middle of another thread's transaction, and never sees its
+    uncommitted rows. A second connection is not an option: a batch has one
+    writer at a time.
     """
 
     def __init__(self, path: Path, conn: sqlite3.Connection, lock: _WriterLock | None) -> None:
         self.path = path
         self._conn = conn
         self._lock = lock
+        self._guard = threading.RLock()
         self._observers: list[Callable[[Change], None]] = []
 
     # ---- opening and closing
@@ -518,9 +556,10 @@ class Batch:
 
     def close(self) -> None:
         """Close the file (checkpointing the write-ahead log) and release the lock."""
-        if self._conn is not None:
-            self._conn.close()
-            self._conn = None
+        with self._guard:
+            if self._conn is not None:
+                self._conn.close()
+                self._conn = None
         if self._lock is not None:
             self._lock.release()
             self._lock = None
@@ -553,15 +592,19 @@ class Batch:
 
     @contextmanager
     def transaction(self) -> Iterator[sqlite3.Connection]:
-        """One write transaction: committed on leaving the block, rolled back on an error."""
+        """One write transaction: committed on leaving the block, rolled back on an error.
+
+        Other threads wait for its end before they query or write.
+        """
         if self.read_only:
             raise PermissionError(f"{self.path} is open read-only")
-        with _transaction(self._connection()) as conn:
+        with self._guard, _transaction(self._connection()) as conn:
             yield conn
 
     def rows(self, sql: str, params: Iterable[Any] = ()) -> list[sqlite3.Row]:
         """Run a read query and return all rows (``sqlite3.Row``, by name or index)."""
-        return self._connection().execute(sql, tuple(params)).fetchall()
+        with self._guard:
+            return self._connection().execute(sql, tuple(params)).fetchall()
 
     def _connection(self) -> sqlite3.Connection:
         if self._conn is None:
@@ -644,6 +687,34 @@ class Batch:
             relabelled = refresh_layout(conn)
         self.notify(Change("page", page_ids=(page_id, *(i for i in relabelled if i != page_id))))
         return page_id
+
+    def add_templates(self, templates: Iterable[Template]) -> None:
+        """Keep the templates pages are read with (one row per name and version).
+
+        Raises
+        ------
+        BatchFileError
+            A template of the same name and version, but other content, is
+            already in the batch (raise the template's version when it changes).
+        """
+        with self.transaction() as conn:
+            for t in templates:
+                text = json.dumps(template_to_json(t), sort_keys=True)
+                row = conn.execute("SELECT json FROM templates WHERE name = ? AND version = ?",
+                                   (t.name, t.version)).fetchone()
+                if row is None:
+                    conn.execute("INSERT INTO templates (name, version, json, added) VALUES (?, ?, ?, ?)",
+                                 (t.name, t.version, text, timestamp()))
+                elif row[0] != text:
+                    raise BatchFileError(
+                        self.path, f"template {t.label} differs from the one of that name and version that "
+                        "read this batch; give the changed template a new version"
+                    )
+
+    def templates(self) -> dict[str, Template]:
+        """The templates kept in the batch, by label (``orchard_card v1``)."""
+        return {t.label: t for t in (template_from_json(json.loads(r[0])) for r in
+                                     self.rows("SELECT json FROM templates ORDER BY name, version"))}
 
     def mark_complete(self, file_ids: Iterable[int]) -> None:
         """Mark files as fully read (they are skipped by later ingests)."""
@@ -738,9 +809,9 @@ def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_v
         boxes = json.dumps([[int(b.x0), int(b.y0), int(b.x1), int(b.y1)] for b in f.boxes])
         cur = conn.execute(
             "INSERT INTO fields (page_id, position, name, boxes, read_value, gap, doubts, value, state, "
-            "rule_problems) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            "rule_problems, typed) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (page_id, position, f.name, boxes, f.value, int(f.gap), json.dumps(list(f.doubts)), f.value, READ,
-             json.dumps(f.rule_problems)),
+             json.dumps(f.rule_problems), f.typed),
         )
         field_id = int(cur.lastrowid)
         conn.executemany(
@@ -811,6 +882,7 @@ def ingest_scans(
     if not todo:
         return summary
     model = model or load_model(settings.model_path)
+    batch.add_templates(load_template(p) for p in settings.template_paths)
     _settle_threshold(batch, model, settings)
     stored = {(r[0], r[1]) for r in batch.rows("SELECT file_id, page FROM pages WHERE page IS NOT NULL")}
     order = {path: i for i, path in enumerate(todo)}
@@ -909,13 +981,21 @@ def _count(batch: Batch, summary: IngestSummary, result: PageRead | ScanProblem,
 # --------------------------------------------------------------------------- samples
 
 
-def labelled_samples(batch: Batch) -> tuple[list[np.ndarray], np.ndarray, list[SampleRef]]:
+def labelled_samples(
+    batch: Batch,
+) -> tuple[list[np.ndarray], list[np.ndarray | None], np.ndarray, list[SampleRef]]:
     """Every box a person corrected or confirmed, as a labelled sample for retraining.
 
     Returns
     -------
     crops : list of (h, w) uint8 ndarray
         The box crops as read (0 = ink, 255 = paper).
+    cells : list of (28, 28) float32 ndarray, 0..1, or None
+        The model input of each box, cut again from the stored page image as
+        the reader cuts it (:func:`recognizer.cells.cut_cell` at the page's
+        dpi; white ink on black, MNIST layout). None when the box comes out
+        blank on re-cutting, or its re-cut crop is not the size of the stored
+        crop (the page and the box no longer agree): nothing to learn from.
     labels : (n,) int64 ndarray
         Class index: 0-9 for a digit, :data:`recognizer.model.NOT_A_DIGIT`
         for a mark a person said is not a digit (value set to empty).
@@ -927,7 +1007,7 @@ def labelled_samples(batch: Batch) -> tuple[list[np.ndarray], np.ndarray, list[S
     """
     rows = batch.rows(
         """
-        SELECT d.id, d.crop_png, d.value, d.state, d.box, f.name, p.page, fl.path,
+        SELECT d.id, d.crop_png, d.value, d.state, d.box, f.name, f.boxes, f.page_id, p.page, p.dpi, fl.path,
                (SELECT a.reviewer FROM actions a WHERE a.field_id = f.id AND a.undone_by IS NULL
                 ORDER BY a.id DESC LIMIT 1) AS reviewer
         FROM digits d JOIN fields f ON f.id = d.field_id JOIN pages p ON p.id = f.page_id
@@ -937,6 +1017,20 @@ def labelled_samples(batch: Batch) -> tuple[list[np.ndarray], np.ndarray, list[S
         """
     )
     crops = [decode_png(r["crop_png"]) for r in rows]
+    pages: dict[int, np.ndarray | None] = {}
+    cells = []
+    for r, crop in zip(rows, crops):
+        if r["page_id"] not in pages:
+            pages[r["page_id"]] = batch.page_image(r["page_id"])
+        cells.append(_recut(pages[r["page_id"]], json.loads(r["boxes"])[r["box"]], float(r["dpi"]), crop.shape))
     labels = np.array([int(r["value"]) if r["value"] else NOT_A_DIGIT for r in rows], dtype=np.int64)
     refs = [SampleRef(r["id"], r["path"], r["page"], r["name"], r["box"], r["state"], r["reviewer"]) for r in rows]
-    return crops, labels, refs
+    return crops, cells, labels, refs
+
+
+def _recut(image: np.ndarray | None, box: list[int], dpi: float, shape: tuple[int, ...]) -> np.ndarray | None:
+    """The MNIST cell of ``box`` cut again from ``image``; None if blank or of another crop size."""
+    if image is None:
+        return None
+    cell = cut_cell(image, Box(*box), dpi=dpi)
+    return None if cell.blank or cell.crop.shape != shape else cell.mnist

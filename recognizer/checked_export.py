@@ -9,7 +9,14 @@ among its written boxes, 4 decimals, empty if none), and last ``problem``
 (why a file or page could not be read; such rows have no values).
 
 Values are the reviewed values as text (a grower number ``00412`` keeps its
-zeros); an ``unreadable`` field is empty. The file is RFC 4180 CSV (commas,
+zeros); an ``unreadable`` field is empty. Pages read with a form template
+give their fields' typed values after review (``18.7`` with a decimal point,
+ISO 8601 dates ``2026-09-13``, integers without leading zeros; see
+:mod:`recognizer.template`), with the rules checked again on the reviewed
+values (:func:`recognizer.review.recheck_rules`); a typed value that breaks a
+rule (a date that is no day) shows its digits. When any page was read with a
+template, a column ``template`` (its name and version) follows ``page`` and
+the template's fields come first, in the template's order. The file is RFC 4180 CSV (commas,
 double-quote quoting, CRLF line ends) in UTF-8, written to a temporary file
 and renamed into place, so a refused or failed export leaves no partial file.
 
@@ -54,16 +61,17 @@ def checked_table(batch: Batch, *, audit: bool = False, allow_unchecked: bool = 
     """Header and rows of the checked CSV (all cells are strings)."""
     fields = batch.rows(
         """
-        SELECT f.page_id, f.name, f.value, f.state,
+        SELECT f.page_id, f.name, f.value, f.typed, f.state, f.position, p.template,
                (SELECT MIN(d.confidence) FROM digits d WHERE d.field_id = f.id AND NOT d.blank) AS lowest
-        FROM fields f
+        FROM fields f JOIN pages p ON p.id = f.page_id
         """
     )
     by_page: dict[int, dict[str, object]] = defaultdict(dict)
     for f in fields:
         by_page[f["page_id"]][f["name"]] = f
-    names = sorted({f["name"] for f in fields}, key=field_sort_key)
-    header = ["file", "page", *names]
+    templated = any(f["template"] is not None for f in fields)
+    names = sorted({f["name"] for f in fields}, key=lambda n: _column_order(n, fields))
+    header = ["file", "page", *(["template"] if templated else []), *names]
     if allow_unchecked:
         header.append("unchecked_fields")
     if audit:
@@ -71,11 +79,13 @@ def checked_table(batch: Batch, *, audit: bool = False, allow_unchecked: bool = 
     header.append("problem")
     rows = []
     for page in batch.rows(
-        "SELECT p.id, p.page, p.problem, fl.path FROM pages p JOIN files fl ON fl.id = p.file_id "
+        "SELECT p.id, p.page, p.problem, p.template, fl.path FROM pages p JOIN files fl ON fl.id = p.file_id "
         "ORDER BY fl.id, p.page"
     ):
         own = by_page.get(page["id"], {})
         row = [page["path"], "" if page["page"] is None else str(page["page"])]
+        if templated:
+            row.append(page["template"] or "")
         row += [_value(own.get(n)) for n in names]
         if allow_unchecked:
             row.append(" ".join(n for n in names if n in own and own[n]["state"] == TO_CHECK))
@@ -88,8 +98,16 @@ def checked_table(batch: Batch, *, audit: bool = False, allow_unchecked: bool = 
     return header, rows
 
 
+def _column_order(name: str, fields) -> tuple:
+    """Template fields first, by their place in the template; then the others, ``f2`` before ``f10``."""
+    places = [f["position"] for f in fields if f["name"] == name and f["template"] is not None]
+    return (0, min(places), "") if places else (1, *field_sort_key(name))
+
+
 def _value(f) -> str:
-    return "" if f is None or f["state"] == UNREADABLE else f["value"]
+    if f is None or f["state"] == UNREADABLE:
+        return ""
+    return f["value"] if f["typed"] is None else f["typed"]
 
 
 def export_checked(

@@ -75,6 +75,7 @@ too but are not undone by :func:`undo` (set the threshold again).
 from __future__ import annotations
 
 import datetime as _dt
+import functools
 import getpass
 import json
 import sqlite3
@@ -90,6 +91,7 @@ from .boxes import Box
 from .cells import cut_cells
 from .model import CLASSES, NOT_A_DIGIT, DigitModel, load_model
 from .reading import UNREADABLE_MARK, field_value
+from .template import Template, check_page, template_from_json
 
 if TYPE_CHECKING:
     from .batch import Batch
@@ -113,6 +115,7 @@ __all__ = [
     "field_state",
     "combine_states",
     "refresh_states",
+    "recheck_rules",
     "refresh_layout",
     "timestamp",
     "default_reviewer",
@@ -242,15 +245,18 @@ def refresh_states(
     page_ids: Sequence[int] | None = None,
     field_ids: Sequence[int] | None = None,
 ) -> list[int]:
-    """Re-flag digits against the batch threshold and re-derive field values and states.
+    """Re-flag digits against the batch threshold, re-derive field values, check
+    the template rules again and re-derive field states.
 
     Call inside a write transaction. Digits a person handled keep their
-    state. Limited to the given pages or fields (all when both are None).
+    state. Limited to the given pages or fields (all when both are None),
+    except that the rules are checked on the whole page of each field in scope
+    (a sum spans fields), see :func:`recheck_rules`.
 
     Returns
     -------
     list of int
-        Ids of the fields whose value or state changed.
+        Ids of the fields whose value, typed value, rule problems or state changed.
     """
     where, params = _scope(page_ids, field_ids)
     threshold = _threshold(conn)
@@ -261,6 +267,39 @@ def refresh_states(
               AND field_id IN (SELECT f.id FROM fields f WHERE {where})""",
         (UNREADABLE_MARK, threshold, threshold, *params),
     )
+    boxes = _box_rows(conn, where, params)
+    values = []
+    for f in conn.execute(f"SELECT f.id, f.whole, f.value FROM fields f WHERE {where}", params):
+        value = f["value"] if f["whole"] else field_value([d["value"] or "" for d in boxes[f["id"]]])[0]
+        if value != f["value"]:
+            values.append((value, f["id"]))
+    conn.executemany("UPDATE fields SET value = ? WHERE id = ?", values)
+    ruled = recheck_rules(conn, [r[0] for r in conn.execute(f"SELECT DISTINCT f.page_id FROM fields f WHERE {where}",
+                                                             params)])
+    if ruled:
+        where = f"({where}) OR f.id IN ({','.join('?' * len(ruled))})"
+        params = [*params, *ruled]
+        boxes = _box_rows(conn, where, params)
+    states = []
+    for f in conn.execute(
+        f"SELECT f.id, f.gap, f.doubts, f.rule_problems, f.resolution, f.state, p.warnings, p.odd_layout "
+        f"FROM fields f JOIN pages p ON p.id = f.page_id WHERE {where}",
+        params,
+    ):
+        digits = boxes[f["id"]]
+        flagged = (bool(f["gap"]) or f["doubts"] != "[]" or f["rule_problems"] != "[]"
+                   or f["warnings"] != "[]" or bool(f["odd_layout"]))
+        state = field_state(
+            (d["state"] for d in digits if _counted(d["blank"], d["state"])),
+            flagged=flagged, resolution=f["resolution"],
+        )
+        if state != f["state"]:
+            states.append((state, f["id"]))
+    conn.executemany("UPDATE fields SET state = ? WHERE id = ?", states)
+    return sorted({r[1] for r in values} | set(ruled) | {r[1] for r in states})
+
+
+def _box_rows(conn: sqlite3.Connection, where: str, params: Sequence[Any]) -> dict[int, list[sqlite3.Row]]:
     boxes: dict[int, list[sqlite3.Row]] = defaultdict(list)
     for row in conn.execute(
         f"SELECT d.field_id, d.blank, d.value, d.state FROM digits d JOIN fields f ON f.id = d.field_id "
@@ -268,25 +307,75 @@ def refresh_states(
         params,
     ):
         boxes[row["field_id"]].append(row)
-    updates = []
-    for f in conn.execute(
-        f"SELECT f.id, f.gap, f.doubts, f.rule_problems, f.whole, f.resolution, f.value, f.state, p.warnings, "
-        f"p.odd_layout "
-        f"FROM fields f JOIN pages p ON p.id = f.page_id WHERE {where}",
-        params,
-    ):
-        digits = boxes[f["id"]]
-        value = f["value"] if f["whole"] else field_value([d["value"] or "" for d in digits])[0]
-        flagged = (bool(f["gap"]) or f["doubts"] != "[]" or f["rule_problems"] != "[]"
-                   or f["warnings"] != "[]" or bool(f["odd_layout"]))
-        state = field_state(
-            (d["state"] for d in digits if _counted(d["blank"], d["state"])),
-            flagged=flagged, resolution=f["resolution"],
-        )
-        if (value, state) != (f["value"], f["state"]):
-            updates.append((value, state, f["id"]))
-    conn.executemany("UPDATE fields SET value = ?, state = ? WHERE id = ?", updates)
-    return [u[2] for u in updates]
+    return boxes
+
+
+@functools.lru_cache(maxsize=8)
+def _template(text: str) -> Template:
+    return template_from_json(json.loads(text))
+
+
+def recheck_rules(conn: sqlite3.Connection, page_ids: Sequence[int]) -> list[int]:
+    """Type the fields of pages read with a template and test its rules on their values now.
+
+    Call inside a write transaction, after the field values are up to date.
+    The values checked are the reviewed ones: each box's value, or for a
+    field set as a whole its digits right-aligned in its boxes (the way the
+    cards are filled in); an ``unreadable`` field counts as unreadable (no
+    rule is tested on it, sums skip it). Updates ``fields.typed`` and
+    ``fields.rule_problems``; a field a person had confirmed or corrected that
+    now breaks a rule it did not break before loses that decision, so it is to
+    check again. Pages whose template is not kept in the batch are left alone.
+
+    Returns
+    -------
+    list of int
+        Ids of the fields whose typed value or rule problems changed.
+    """
+    if not page_ids:
+        return []
+    marks = ",".join("?" * len(page_ids))
+    pages = conn.execute(
+        f"SELECT p.id, t.json FROM pages p JOIN templates t ON p.template = t.name || ' v' || t.version "
+        f"WHERE p.id IN ({marks})",
+        list(page_ids),
+    ).fetchall()
+    changed: list[int] = []
+    for page in pages:
+        template = _template(page["json"])
+        where = "f.page_id = ?"
+        boxes = _box_rows(conn, where, [page["id"]])
+        rows = {r["name"]: r for r in conn.execute(
+            "SELECT f.id, f.name, f.value, f.whole, f.resolution, f.typed, f.rule_problems "
+            f"FROM fields f WHERE {where}", [page["id"]])}
+        if set(rows) != {f.name for f in template.fields}:
+            continue  # not the template's fields (cannot happen for a page it read)
+        texts = {f.name: _review_texts(rows[f.name], boxes[rows[f.name]["id"]], len(f.boxes))
+                 for f in template.fields}
+        for name, typed in check_page(template, texts).items():
+            row = rows[name]
+            n = len(template.field(name).boxes)
+            if row["whole"] and len(row["value"]) > n and row["resolution"] != UNREADABLE:
+                typed.text = row["value"]
+                typed.problems = [f"length: {len(row['value'])} digits given, the field has {n} boxes"]
+            old = json.loads(row["rule_problems"])
+            if (typed.text, typed.problems) == (row["typed"], old):
+                continue
+            keep = row["resolution"] if set(typed.problems) <= set(old) or row["resolution"] == UNREADABLE else None
+            conn.execute("UPDATE fields SET typed = ?, rule_problems = ?, resolution = ? WHERE id = ?",
+                         (typed.text, json.dumps(typed.problems), keep, row["id"]))
+            changed.append(row["id"])
+    return changed
+
+
+def _review_texts(field_row: sqlite3.Row, digits: Sequence[sqlite3.Row], n: int) -> list[str]:
+    """The per-box texts of a field as reviewed (see :func:`recheck_rules`)."""
+    if field_row["resolution"] == UNREADABLE or (field_row["whole"] and len(field_row["value"]) > n):
+        return [UNREADABLE_MARK] + [""] * (n - 1)
+    if field_row["whole"]:
+        value = field_row["value"]
+        return [""] * (n - len(value)) + list(value)
+    return [d["value"] or "" for d in digits]
 
 
 def refresh_layout(conn: sqlite3.Connection) -> list[int]:

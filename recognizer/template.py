@@ -512,8 +512,9 @@ def _sum_problem(rule: SumRule, values: Mapping[str, TypedValue]) -> str | None:
     total = involved[0].number or 0
     if math.isclose(sum(parts), total, abs_tol=1e-9):  # type: ignore[arg-type]
         return None
-    shown = involved[0].text or "blank"
-    return f"sum: {rule.total} {shown} is not {' + '.join(rule.parts)} = {_number_text(sum(parts))}"  # type: ignore[arg-type]
+    shown = " + ".join(v.text or "0" for v in involved[1:])
+    return (f"sum: {rule.total} {involved[0].text or 'blank'} ≠ {shown} "  # type: ignore[arg-type]
+            f"({' + '.join(rule.parts)} = {_number_text(sum(parts))})")
 
 
 def _number_text(x: float) -> str:
