@@ -57,4 +57,6 @@ def colour(state: str) -> QColor:
 
 
 def reasons_in_words(why: tuple[str, ...]) -> str:
-    return "; ".join(REASON_WORDS.get(w, w) for w in why)
+    """The reasons a field is flagged, in words; a broken template rule shows as the rule says it."""
+    return "; ".join(f"a rule is broken — {w[5:]}" if w.startswith("rule ") else REASON_WORDS.get(w, w)
+                     for w in why)

@@ -40,6 +40,7 @@ from PySide6.QtWidgets import (
 from recognizer.batch import SUFFIX, Batch, BatchFileError, BatchInUseError, Change, IngestSummary, labelled_samples
 from recognizer.model import DigitModel, ModelFileError, load_model
 from recognizer.scan import SCAN_SUFFIXES, ScanProblem, list_scans
+from recognizer.template import TemplateFileError, load_template
 
 from .batch_access import ChangeRelay, ImageCache, SharedBatch, page_fields, page_summaries
 from .dialogs import ExportDialog, StrictnessDialog
@@ -231,6 +232,11 @@ class MainWindow(QMainWindow):
         self._action(file, "Open &scans…", self.choose_scans, "Ctrl+O", "Read scan files into a batch")
         self._action(file, "Open a &folder of scans…", self.choose_folder, "Ctrl+Shift+O")
         self._action(file, "Open a &batch…", self.choose_batch, "Ctrl+Shift+B", "Open a batch file (.inkcount)")
+        file.addSeparator()
+        self._action(file, "Form &template…", self.choose_template, "Ctrl+Shift+T",
+                     "Open a form template to name, type and place its fields (Ctrl+Shift+T)")
+        self._action(file, "&New template from a blank form…", self.new_template, "Ctrl+Shift+N",
+                     "Find the boxes on a scan of the form, then name and type each field (Ctrl+Shift+N)")
         self.recent_menu = file.addMenu("&Recent batches")
         file.addSeparator()
         self.export_action = self._action(file, "&Export checked CSV…", self.export_dialog, "Ctrl+E")
@@ -335,12 +341,59 @@ class MainWindow(QMainWindow):
     def choose_scans(self) -> None:
         names, _ = QFileDialog.getOpenFileNames(self, "Open scans", "", _SCAN_FILTER)
         if names:
-            self.open_scans([Path(n) for n in names])
+            self._open_with_template([Path(n) for n in names])
 
     def choose_folder(self) -> None:
         name = QFileDialog.getExistingDirectory(self, "Open a folder of scans")
         if name:
-            self.open_scans([Path(name)])
+            self._open_with_template([Path(name)])
+
+    def _open_with_template(self, paths: list[Path]) -> None:
+        """Ask whether the scans are read with a form template, then read them."""
+        box = QMessageBox(QMessageBox.Icon.Question, "Form template",
+                          "Read these scans with a form template? A template names and types the fields "
+                          "(dates, weights with decimals) and checks their rules.", parent=self)
+        plain = box.addButton("Read without a template", QMessageBox.ButtonRole.RejectRole)
+        pick = box.addButton("Choose a template…", QMessageBox.ButtonRole.AcceptRole)
+        box.setDefaultButton(plain)
+        box.exec()
+        template = None
+        if box.clickedButton() is pick:
+            name, _ = QFileDialog.getOpenFileName(self, "Form template", "", "Form templates (*.json)")
+            if not name:
+                return
+            template = Path(name)
+        self.open_scans(paths, template=template)
+
+    def choose_template(self) -> None:
+        name, _ = QFileDialog.getOpenFileName(self, "Form template", "", "Form templates (*.json)")
+        if name:
+            self.edit_template(Path(name))
+
+    def new_template(self) -> None:
+        name, _ = QFileDialog.getOpenFileName(self, "Scan of a blank (or filled) form", "", _SCAN_FILTER)
+        if name:
+            self.edit_template(scan=Path(name))
+
+    def edit_template(self, path: Path | None = None, *, scan: Path | None = None):
+        """Open the template editor on a template file, or on a draft from a form scan."""
+        from .template_editor import TemplateEditor, draft_from_scan
+
+        if scan is not None:
+            draft = draft_from_scan(scan)
+            if isinstance(draft, str):
+                self.show_problem("New template", f"No digit boxes found: {draft}")
+                return None
+            editor = TemplateEditor(draft, None, parent=self)
+        else:
+            try:
+                editor = TemplateEditor(load_template(path), path, loaded=True, parent=self)
+            except TemplateFileError as exc:
+                self.show_problem("Form template", str(exc))
+                return None
+        editor.saved.connect(lambda p: self.say(f"Template saved: {p}"))
+        editor.show()
+        return editor
 
     def choose_batch(self) -> None:
         name, _ = QFileDialog.getOpenFileName(self, "Open a batch", "", f"Inkcount batches (*{SUFFIX});;All files (*)")
@@ -454,11 +507,13 @@ class MainWindow(QMainWindow):
         self.setWindowTitle("Inkcount")
         self._update_enabled()
 
-    def open_scans(self, paths: list[Path], *, batch_path: Path | None = None) -> bool:
+    def open_scans(self, paths: list[Path], *, batch_path: Path | None = None,
+                   template: Path | None = None) -> bool:
         """Read scan files and folders into the open batch, or into a new batch file.
 
         ``batch_path`` names the batch (created if missing); without it and
         without an open batch, the clerk is asked (default: next to the scans).
+        With a form ``template`` file every page is read with it.
         """
         paths = [Path(p) for p in paths]
         if self.reading:
@@ -476,7 +531,13 @@ class MainWindow(QMainWindow):
         if self.model is None:
             self.show_problem("Model", "No digit model is available, so scans cannot be read.")
             return False
-        self._start_reading(files, problems)
+        if template is not None:
+            try:
+                load_template(template)
+            except TemplateFileError as exc:
+                self.show_problem("Form template", str(exc))
+                return False
+        self._start_reading(files, problems, () if template is None else (str(template),))
         return True
 
     # ------------------------------------------------------------------ reading
@@ -485,8 +546,9 @@ class MainWindow(QMainWindow):
     def reading(self) -> bool:
         return self.thread is not None
 
-    def _start_reading(self, files: list[Path], problems: list[ScanProblem]) -> None:
-        self.worker = ReadWorker(self.batch, files, problems, self.model)
+    def _start_reading(self, files: list[Path], problems: list[ScanProblem],
+                       template_paths: tuple[str, ...] = ()) -> None:
+        self.worker = ReadWorker(self.batch, files, problems, self.model, template_paths=template_paths)
         self.worker.progress.connect(self._on_progress)
         self.worker.finished.connect(self._on_read_finished)
         self.worker.failed.connect(self._on_read_failed)

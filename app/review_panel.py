@@ -281,6 +281,8 @@ class ReviewPanel(QFrame):
             if self.view is None:
                 self.next_field(from_start=True)
             return
+        if len(change.field_ids) > 1:  # the template rules checked again changed other fields too
+            self.reload_queue()
         for fid, state in field_states(self.batch, change.field_ids).items():
             if state == TO_CHECK and fid in self._item_index:
                 self._open.add(fid)

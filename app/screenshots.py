@@ -3,8 +3,8 @@
 ``python -m app.screenshots [OUT_DIR]`` reads the sample forms into a
 temporary batch, checks a few fields so that every state shows, and writes
 ``docs/screenshots/``: the start page, the batch with its page view, the
-check panel, the sort wall, the model panel, the strictness dialog and the
-export dialog. The images are reduced to a 256-colour palette to stay small.
+check panel, the sort wall, the model panel, the strictness dialog, the
+export dialog and the form template editor. The images are reduced to a 256-colour palette to stay small.
 """
 
 from __future__ import annotations
@@ -96,6 +96,15 @@ def render_all(out: Path) -> list[Path]:
         dialog.path.setText(str(_SHOWN_FOLDER / "harvest-week-37.csv"))
         written.append(_save(dialog, out / "export_dialog.png"))
         dialog.reject()
+
+        editor = window.edit_template(ROOT / "sample_forms" / "orchard_card.json")
+        editor.resize(1300, 760)
+        editor.select("total_crates")
+        editor.say("Field total_crates changed.")
+        QApplication.processEvents()
+        editor.canvas.fitInView(editor.canvas.sceneRect(), Qt.AspectRatioMode.KeepAspectRatio)
+        written.append(_save(editor, out / "template_editor.png"))
+        editor.close()
         window.close()
     return written
 

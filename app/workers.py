@@ -42,8 +42,9 @@ class ReadWorker(QObject):
     failed = Signal(str)
 
     def __init__(self, batch: Batch, files: list[Path], problems: list[ScanProblem],
-                 model: DigitModel | None) -> None:
+                 model: DigitModel | None, *, template_paths: tuple[str, ...] = ()) -> None:
         super().__init__()
+        self.template_paths = template_paths
         self.batch = batch
         self.files = files
         self.problems = problems
@@ -67,7 +68,7 @@ class ReadWorker(QObject):
                 self.progress.emit(done, total, f"{Path(result.source).name}" + (f", page {page}" if page else ""))
 
             summary = ingest_scans(
-                self.batch, self.files, settings=ReadSettings(keep_image=True), workers=1,
+                self.batch, self.files, settings=ReadSettings(keep_image=True, template_paths=self.template_paths), workers=1,
                 model=self.model, problems=self.problems, on_result=on_result, should_stop=self._stop.is_set,
             )
         except Exception as exc:  # reported to the person, the window goes on

@@ -157,7 +157,8 @@ class Change:
 
     ``kind`` is ``"page"`` (a page read into the batch; ``page_ids`` also
     names pages whose layout flag changed), ``"review"`` (a review action or
-    its undo) or ``"flags"`` (threshold or model changed: any state may have
+    its undo; ``field_ids`` names its field first, then any other field whose
+    rule problems or state the template rules checked again changed) or ``"flags"`` (threshold or model changed: any state may have
     changed).
     """
 
@@ -657,12 +658,13 @@ def _field_action(batch: Batch, kind: str, field_id: int, reviewer: str | None, 
         before_value = _field_value(conn, field_id)
         before = _snapshot(conn, field_id)
         change(conn)
-        refresh_states(conn, field_ids=[field_id])
+        touched = refresh_states(conn, field_ids=[field_id])
         if digit_id is None:
             old, new = before_value, _field_value(conn, field_id)
         action = _record(conn, reviewer=reviewer or default_reviewer(), kind=kind, field_id=field_id,
                          digit_id=digit_id, old=old, new=new, before=before)
-    batch.notify(Change("review", field_ids=(field_id,), digit_ids=() if digit_id is None else (digit_id,)))
+    batch.notify(Change("review", field_ids=_with_others(field_id, touched),
+                        digit_ids=() if digit_id is None else (digit_id,)))
     return action
 
 
@@ -801,12 +803,17 @@ def undo(batch: Batch, *, reviewer: str | None = None) -> Action | None:
         old = _field_value(conn, field_id)
         before = _snapshot(conn, field_id)
         _restore(conn, field_id, json.loads(target["before"]))
-        refresh_states(conn, field_ids=[field_id])
+        touched = refresh_states(conn, field_ids=[field_id])
         action = _record(conn, reviewer=reviewer, kind="undo", field_id=field_id, digit_id=target["digit_id"],
                          old=old, new=_field_value(conn, field_id), before=before, undoes=target["id"])
         conn.execute("UPDATE actions SET undone_by = ? WHERE id = ?", (action.id, target["id"]))
-    batch.notify(Change("review", field_ids=(field_id,)))
+    batch.notify(Change("review", field_ids=_with_others(field_id, touched)))
     return action
+
+
+def _with_others(field_id: int, touched: Sequence[int]) -> tuple[int, ...]:
+    """The action's field first, then the other fields its re-checked rules changed (a sum's)."""
+    return (field_id, *(i for i in touched if i != field_id))
 
 
 def actions(batch: Batch) -> list[Action]:
