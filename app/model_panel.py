@@ -15,10 +15,23 @@ from PySide6.QtWidgets import QFormLayout, QLabel, QPushButton, QSizePolicy, QVB
 from recognizer.batch import BatchSettings
 from recognizer.model import DigitModel
 
-__all__ = ["ModelPanel", "RejectCurve", "reject_points", "RETRAIN_MISSING"]
+__all__ = ["ModelPanel", "RejectCurve", "reject_points", "retraining_in_words", "RETRAIN_TIP"]
 
-RETRAIN_MISSING = ("Retraining from this batch's corrections is not available in this version of Inkcount "
-                   "(the reading library has no retraining step for batches yet).")
+RETRAIN_TIP = ("Fine-tune the model on the digits corrected or confirmed in this batch, see how it does "
+               "before and after, and choose whether to use it (Ctrl+Shift+R)")
+
+
+def retraining_in_words(model: DigitModel) -> str:
+    """How a retrained model came about, in words ("no" for a model trained from scratch)."""
+    r = model.metadata.get("retraining")
+    if not r:
+        return "no (the model as trained)"
+    files = ", ".join(b.get("file", "?") for b in r.get("batches", [])) or "batches"
+    before, after = r["before"], r["after"]
+    return (f"from {model.metadata.get('parent', '?')} on {r['n_learned']:,} checked digits of {files}; "
+            f"right on held-back checked digits {100 * before['new_samples']:.1f} % → "
+            f"{100 * after['new_samples']:.1f} %, on held-out digits {100 * before['heldout']:.1f} % → "
+            f"{100 * after['heldout']:.1f} %")
 
 
 def reject_points(model: DigitModel) -> list[tuple[float, float]]:
@@ -115,7 +128,11 @@ class ModelPanel(QWidget):
         self.strictness = QLabel("–")
         self.strictness.setWordWrap(True)
         self.samples = QLabel("–")
+        self.retrained = QLabel("–")
+        self.retrained.setWordWrap(True)
+        self.retrained.setAccessibleName("Retrained")
         form.addRow("Model reading this batch:", self.name)
+        form.addRow("Retrained:", self.retrained)
         form.addRow("Right on digits it never saw:", self.heldout)
         form.addRow("Strictness of this batch:", self.strictness)
         form.addRow("Checked digits to learn from:", self.samples)
@@ -126,7 +143,7 @@ class ModelPanel(QWidget):
         self.retrain_button = QPushButton("Retrain from this batch's corrections…")
         self.retrain_button.setAccessibleName("Retrain")
         self.retrain_button.setEnabled(False)
-        self.retrain_button.setToolTip(RETRAIN_MISSING)
+        self.retrain_button.setToolTip(RETRAIN_TIP)
         layout.addWidget(self.retrain_button)
         self.name.setAccessibleName("Model name")
         self.heldout.setAccessibleName("Held-out accuracy")
@@ -135,10 +152,13 @@ class ModelPanel(QWidget):
         if model is None:
             self.name.setText("–")
             self.heldout.setText("–")
+            self.retrained.setText("–")
             self.curve.set_curve([], None)
+            self.retrain_button.setEnabled(False)
             return
         version = settings.model_version if settings and settings.model_version else model.version
         self.name.setText(version + ("" if version == model.version else f" (loaded: {model.version})"))
+        self.retrained.setText(retraining_in_words(model))
         ev = model.metadata.get("evaluation") or {}
         if "accuracy" in ev:
             self.heldout.setText(f"{100 * ev['accuracy']:.1f} % of {ev.get('n', '?'):,} digits"
@@ -152,4 +172,5 @@ class ModelPanel(QWidget):
         else:
             self.strictness.setText("not set yet (every digit is checked)")
         self.samples.setText("–" if samples is None else f"{samples:,}")
+        self.retrain_button.setEnabled(settings is not None)
         self.curve.set_curve(reject_points(model), settings.target_error if settings else None)

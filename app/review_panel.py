@@ -39,9 +39,10 @@ from PySide6.QtWidgets import (
 )
 
 from recognizer.batch import Batch, Change
+from recognizer.batch_queries import FieldView, field_states, load_field
 from recognizer.review import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, mark_unreadable, set_field, undo
 
-from .batch_access import FieldView, ImageCache, field_states, load_field
+from .batch_access import ImageCache
 from .look import CAUTION, STATE_MARKS, STATE_WORDS, colour, reasons_in_words
 
 __all__ = ["ReviewPanel", "BoxTile", "ORDER_CHOICES", "KEY_HELP"]

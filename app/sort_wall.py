@@ -33,6 +33,7 @@ from PySide6.QtWidgets import (
 )
 
 from recognizer.batch import Batch, Change
+from recognizer.batch_queries import digit_states
 from recognizer.model import CLASSES, NOT_A_DIGIT
 from recognizer.reading import UNREADABLE_MARK
 from recognizer.review import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, set_digit
@@ -213,16 +214,13 @@ class SortWall(QScrollArea):
             return
         if self._stale or not change.field_ids:
             return
-        marks = ",".join("?" * len(change.field_ids))
-        for r in self.batch.rows(
-            f"SELECT id, state FROM digits WHERE field_id IN ({marks}) AND NOT blank", change.field_ids
-        ):
-            entry = self._items.get(r["id"])
-            if r["state"] != TO_CHECK and entry is not None:
+        for digit_id, state in digit_states(self.batch, change.field_ids).items():
+            entry = self._items.get(digit_id)
+            if state != TO_CHECK and entry is not None:
                 lst = entry.listWidget()
                 lst.takeItem(lst.row(entry))
-                del self._items[r["id"]]
-            elif r["state"] == TO_CHECK and entry is None:
+                del self._items[digit_id]
+            elif state == TO_CHECK and entry is None:
                 self._stale = True
         if self._stale and self.isVisible():
             self.load()

@@ -49,7 +49,6 @@ tried: scikit-learn's MLP only offers an L2 pull towards zero.
 from __future__ import annotations
 
 import datetime as _dt
-import json
 import platform
 import warnings
 from collections.abc import Callable, Sequence
@@ -63,13 +62,14 @@ from sklearn.neural_network import MLPClassifier
 from threadpoolctl import threadpool_limits
 
 from recognizer.batch import Batch, SampleRef, labelled_samples
-from recognizer.boxes import Box
-from recognizer.cells import cut_cell
 from recognizer.junk import junk_marks
 from recognizer.model import NOT_A_DIGIT, DigitModel, deskew
 from recognizer.training import TrainSettings, _with_offset, augment, calibrate, export_member
 
 Progress = Callable[[str], None]
+
+#: Fewest labelled samples :func:`retrain` accepts (one to learn from, one held back).
+MIN_SAMPLES = 2
 
 
 @dataclass(frozen=True)
@@ -161,25 +161,10 @@ def batch_cells(batch: Batch) -> LabelledCells:
     LabelledCells
         Boxes whose cell comes out blank on re-cutting are left out.
     """
-    crops, labels, refs = labelled_samples(batch)
-    cells, keep = [], []
-    pages: dict[int, tuple[np.ndarray, float]] = {}
-    for i, (crop, ref) in enumerate(zip(crops, refs)):
-        row = batch.rows(
-            "SELECT d.box, f.boxes, f.page_id, p.dpi FROM digits d JOIN fields f ON f.id = d.field_id "
-            "JOIN pages p ON p.id = f.page_id WHERE d.id = ?",
-            (ref.digit_id,),
-        )[0]
-        if row["page_id"] not in pages:
-            pages[row["page_id"]] = (batch.page_image(row["page_id"]), float(row["dpi"]))
-        image, dpi = pages[row["page_id"]]
-        cell = cut_cell(image, Box(*json.loads(row["boxes"])[row["box"]]), dpi=dpi)
-        if cell.blank or cell.crop.shape != crop.shape:
-            continue
-        cells.append(cell.mnist)
-        keep.append(i)
+    _crops, cells, labels, refs = labelled_samples(batch)
+    keep = [i for i, cell in enumerate(cells) if cell is not None]
     return LabelledCells(
-        cells=np.stack(cells).astype(np.float32) if cells else np.zeros((0, 28, 28), np.float32),
+        cells=np.stack([cells[i] for i in keep]).astype(np.float32) if keep else np.zeros((0, 28, 28), np.float32),
         labels=labels[keep].astype(np.int64),
         refs=[refs[i] for i in keep],
         sources=[str(batch.path)] * len(keep),
@@ -272,7 +257,7 @@ def retrain(
     parent : DigitModel
         Must carry replay and validation digits (a model file of format 2).
     samples : LabelledCells
-        From :func:`gather_cells`; at least 2 samples.
+        From :func:`gather_cells`; at least :data:`MIN_SAMPLES`.
     heldout : (images (n, 28, 28) 0..1, labels (n,))
         The held-out check set (:func:`recognizer.evaluation.load_heldout`).
     settings : RetrainSettings
@@ -293,8 +278,8 @@ def retrain(
     if parent.replay_images is None or parent.validation_images is None:
         raise ValueError("this model file carries no replay and validation digits; "
                          "retraining needs a model trained by this version of Inkcount")
-    if len(samples.labels) < 2:
-        raise ValueError(f"need at least 2 corrected or confirmed digits, got {len(samples.labels)}")
+    if len(samples.labels) < MIN_SAMPLES:
+        raise ValueError(f"need at least {MIN_SAMPLES} corrected or confirmed digits, got {len(samples.labels)}")
     start = _dt.datetime.now()
     root = np.random.SeedSequence(settings.seed)
     split_ss, calib_ss, *member_ss = root.spawn(2 + len(parent.members))

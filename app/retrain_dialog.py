@@ -1,0 +1,234 @@
+"""Retrain from this batch's corrections: progress, the result in plain words,
+saving the new model, and switching the batch to it.
+
+The dialog runs :class:`app.workers.RetrainWorker`, then shows the figures
+before and after (the batch's held-back checked digits, the 5,000 held-out
+MNIST digits, how many digits it learned from). An accepted model can be
+saved and used for the batch (:class:`app.workers.RereadWorker`: the
+unchecked digits are read again; corrected and confirmed values stay). A
+refused model is explained and offers nothing to save. Retraining cannot be
+stopped half-way (the library has no stopping point), so the dialog cannot be
+closed while it runs; it is window-modal, so no review action lands in the
+middle of a re-read.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+from PySide6.QtCore import QThread, Signal
+from PySide6.QtWidgets import QDialog, QDialogButtonBox, QFileDialog, QLabel, QProgressBar, QPushButton, QVBoxLayout
+
+from recognizer.batch import Batch
+from recognizer.model import DigitModel
+from recognizer.retrain import RetrainResult, RetrainSettings
+from recognizer.review import RereadSummary
+
+from .workers import RereadWorker, RetrainWorker, start_worker
+
+__all__ = ["RetrainDialog", "result_in_words", "default_model_path"]
+
+
+def _pct(x: float) -> str:
+    return "–" if x is None or math.isnan(x) else f"{100 * x:.1f} %"
+
+
+def result_in_words(result: RetrainResult) -> str:
+    """The before/after figures of a retraining as a short HTML text."""
+    f = result.figures
+    before, after = f["before"], f["after"]
+    lines = [
+        f"Learned from <b>{f['n_learned']:,}</b> digits a person corrected or confirmed in this batch; "
+        f"<b>{f['n_held_back']:,}</b> more were held back to test it.",
+        "<table cellspacing='6'><tr><th></th><th>before</th><th>after</th></tr>"
+        f"<tr><td>Right on this batch's held-back checked digits ({f['n_held_back']:,})</td>"
+        f"<td>{_pct(before['new_samples'])}</td><td><b>{_pct(after['new_samples'])}</b></td></tr>"
+        f"<tr><td>Right on {f['n_heldout']:,} handwritten digits it never saw (MNIST)</td>"
+        f"<td>{_pct(before['heldout'])}</td><td><b>{_pct(after['heldout'])}</b></td></tr></table>",
+    ]
+    if result.accepted:
+        lines.append("The new model is at least as good on both, so it can be used.")
+    else:
+        lines.append("<b>The new model is not used: it is worse.</b> "
+                     + " ".join(f"{r[0].upper()}{r[1:]}." for r in result.reasons)
+                     + " Check more fields (more digits of more writers), then try again.")
+    return "<p>" + "</p><p>".join(lines) + "</p>"
+
+
+def default_model_path(batch_path: Path) -> Path:
+    """``<batch>-retrained.npz`` next to the batch (``-2``, ``-3``… when taken)."""
+    batch_path = Path(batch_path)
+    path = batch_path.with_name(f"{batch_path.stem}-retrained.npz")
+    n = 2
+    while path.exists():
+        path = batch_path.with_name(f"{batch_path.stem}-retrained-{n}.npz")
+        n += 1
+    return path
+
+
+class RetrainDialog(QDialog):
+    """Retrain the batch's model on its checked digits, then save and use the new model.
+
+    Signals
+    -------
+    retrain_done(result)
+        Retraining has ended and its thread has stopped: the :class:`RetrainResult`,
+        or None when retraining failed (``problem`` says why).
+    model_used(model, path, summary)
+        The batch now uses the saved model (the re-reading thread has stopped);
+        ``summary`` is the :class:`RereadSummary`.
+    """
+
+    retrain_done = Signal(object)
+    model_used = Signal(object, object, object)
+
+    def __init__(self, batch: Batch, model: DigitModel, *, settings: RetrainSettings = RetrainSettings(),
+                 parent=None) -> None:
+        super().__init__(parent)
+        self.setWindowTitle("Retrain from this batch's corrections")
+        self.setMinimumWidth(560)
+        self.batch, self.model = batch, model
+        self.result: RetrainResult | None = None
+        self.problem: str | None = None
+        self.saved_path: Path | None = None
+        self.thread: QThread | None = None
+        self.worker: RetrainWorker | RereadWorker | None = None
+        self.summary: RereadSummary | None = None
+        self._then = lambda: None
+        layout = QVBoxLayout(self)
+        self.text = QLabel()
+        self.text.setWordWrap(True)
+        self.text.setAccessibleName("Retraining")
+        layout.addWidget(self.text)
+        self.busy = QProgressBar()
+        self.busy.setRange(0, 0)
+        self.busy.setAccessibleName("Retraining progress")
+        layout.addWidget(self.busy)
+        self.step = QLabel()
+        self.step.setWordWrap(True)
+        self.step.setAccessibleName("Retraining step")
+        layout.addWidget(self.step)
+        buttons = QDialogButtonBox()
+        self.save_button = QPushButton("&Save the new model…")
+        self.save_button.setToolTip("Write the new model file (default: next to the batch)")
+        self.use_button = QPushButton("&Use it for this batch")
+        self.use_button.setToolTip("Read this batch's unchecked digits again with the new model; "
+                                   "corrected and confirmed values stay as they are")
+        self.close_button = QPushButton("&Close")
+        for b, role in ((self.save_button, QDialogButtonBox.ButtonRole.ActionRole),
+                        (self.use_button, QDialogButtonBox.ButtonRole.AcceptRole),
+                        (self.close_button, QDialogButtonBox.ButtonRole.RejectRole)):
+            buttons.addButton(b, role)
+            b.setEnabled(False)
+        self.save_button.hide()
+        self.use_button.hide()
+        self.save_button.clicked.connect(lambda: self.save_model())
+        self.use_button.clicked.connect(self.use_model)
+        self.close_button.clicked.connect(self.reject)
+        layout.addWidget(buttons)
+        self._start(batch, model, settings)
+
+    # ---- running
+
+    @property
+    def running(self) -> bool:
+        return self.thread is not None
+
+    def wait(self) -> None:
+        """Block until the running worker (if any) has ended."""
+        if self.thread is not None:
+            self.thread.wait()
+
+    def _run(self, worker: RetrainWorker | RereadWorker, then) -> None:
+        """Run ``worker`` in its thread; call ``then()`` once the thread has stopped."""
+        self.worker, self._then = worker, then
+        self.busy.show()
+        self.close_button.setEnabled(False)
+        self.thread = start_worker(worker, self)
+        self.thread.finished.connect(self._on_thread_finished)
+
+    def _on_thread_finished(self) -> None:
+        self.thread = self.worker = None
+        self.busy.hide()
+        self.close_button.setEnabled(True)
+        self._then()
+
+    def _start(self, batch: Batch, model: DigitModel, settings: RetrainSettings) -> None:
+        self.text.setText(f"Retraining <b>{model.version}</b> on the digits checked in {Path(batch.path).name}. "
+                          "This takes a minute or so and <b>cannot be stopped half-way</b>; nothing in the batch "
+                          "changes until you choose to use the new model.")
+        worker = RetrainWorker(batch, model, settings)
+        worker.progress.connect(self.step.setText)
+        worker.finished.connect(self._on_retrained)
+        worker.failed.connect(self._on_failed)
+        self._run(worker, self._retrain_ended)
+
+    def _on_failed(self, message: str) -> None:
+        self.problem = message
+        self.text.setText(message.replace("\n", "<br>"))
+        self.step.clear()
+
+    def _on_retrained(self, result: RetrainResult) -> None:
+        self.result = result
+        self.text.setText(result_in_words(result))
+        self.step.setText(f"New model {result.model.version}, retrained in {result.figures.get('seconds', 0):.0f} s."
+                          if result.accepted else "Nothing was written.")
+
+    def _retrain_ended(self) -> None:
+        accepted = self.result is not None and self.result.accepted
+        for b in (self.save_button, self.use_button):
+            b.setVisible(accepted)
+            b.setEnabled(accepted)
+        self.retrain_done.emit(self.result)
+
+    # ---- saving and using
+
+    def save_model(self, path: Path | None = None) -> Path | None:
+        """Write the accepted model to ``path`` (asked with a file dialog when None); return where."""
+        if self.result is None or not self.result.accepted:
+            return None
+        if path is None:
+            name, _ = QFileDialog.getSaveFileName(self, "Save the new model", str(default_model_path(self.batch.path)),
+                                                  "Digit models (*.npz)")
+            if not name:
+                return None
+            path = Path(name)
+        path = Path(path)
+        try:
+            self.result.model.save(path)
+        except OSError as exc:
+            self.step.setText(f"Not saved: {exc.strerror or exc}.")
+            return None
+        self.saved_path = path
+        self.step.setText(f"Saved as {path}.")
+        return path
+
+    def use_model(self) -> None:
+        """Switch the batch to the new model (saving it first if needed) and re-read its unchecked digits."""
+        if self.result is None or not self.result.accepted or self.running:
+            return
+        if self.saved_path is None and self.save_model() is None:
+            return
+        self.save_button.setEnabled(False)
+        self.use_button.setEnabled(False)
+        self.step.setText("Reading the unchecked digits again with the new model…")
+        worker = RereadWorker(self.batch, self.result.model, self.saved_path)
+        worker.finished.connect(self._on_reread)
+        worker.failed.connect(self._on_failed)
+        self._run(worker, self._reread_ended)
+
+    def _on_reread(self, summary: RereadSummary) -> None:
+        self.summary = summary
+        self.step.setText(f"This batch now uses {self.result.model.version}: {summary.digits:,} unchecked digits "
+                          f"read again, {summary.changed:,} of them differently.")
+
+    def _reread_ended(self) -> None:
+        if self.summary is not None:
+            self.model_used.emit(self.result.model, self.saved_path, self.summary)
+
+    def reject(self) -> None:
+        if self.running:
+            self.step.setText("Please wait: this cannot be stopped half-way.")
+            return
+        super().reject()
