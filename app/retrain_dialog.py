@@ -48,7 +48,9 @@ def result_in_words(result: RetrainResult) -> str:
         f"<td>{_pct(before['heldout'])}</td><td><b>{_pct(after['heldout'])}</b></td></tr></table>",
     ]
     if result.accepted:
-        lines.append("The new model is at least as good on both, so it can be used.")
+        tolerance = result.model.metadata.get("retraining", {}).get("settings", {}).get("heldout_tolerance", 0.0)
+        lines.append("The new model is not worse on this batch's held-back digits, and on the digits it never "
+                     f"saw it stays within {100 * tolerance:.1f} points of the old one, so it can be used.")
     else:
         lines.append("<b>The new model is not used: it is worse.</b> "
                      + " ".join(f"{r[0].upper()}{r[1:]}." for r in result.reasons)
