@@ -14,15 +14,17 @@ worker are in flight.
 from __future__ import annotations
 
 import os
+import threading
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import Future, ProcessPoolExecutor
 from dataclasses import dataclass
+from queue import Empty, Full, Queue
 from pathlib import Path
 
 from .model import DigitModel, load_model
 from .reading import PageRead, PageReader
-from .scan import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, ScanProblem, count_pages, iter_pages, load_page
+from .scan import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, Page, ScanProblem, count_pages, iter_pages, load_page
 from .template import load_template
 
 __all__ = ["ReadSettings", "read_scans", "PageJob", "page_jobs"]
@@ -102,13 +104,66 @@ def read_scans(
     if workers == 1:
         reader = _reader(model or load_model(settings.model_path), settings)
         if skip is None:
-            for item in iter_pages(files, pdf_dpi=settings.pdf_dpi, max_pixels=settings.max_pixels):
-                yield item if isinstance(item, ScanProblem) else reader.read(item)
+            pages = iter_pages(files, pdf_dpi=settings.pdf_dpi, max_pixels=settings.max_pixels)
         else:
-            for job in page_jobs(files, max_pixels=settings.max_pixels, skip=skip):
-                yield job if isinstance(job, ScanProblem) else _read_job(reader, job, settings)
+            pages = (
+                job if isinstance(job, ScanProblem)
+                else load_page(job.source, job.page, pdf_dpi=settings.pdf_dpi, max_pixels=settings.max_pixels)
+                for job in page_jobs(files, max_pixels=settings.max_pixels, skip=skip)
+            )
+        for item in _decoded_ahead(pages):
+            yield item if isinstance(item, ScanProblem) else reader.read(item)
         return
     yield from _read_in_pool(files, settings, workers, skip)
+
+
+def _decoded_ahead(pages: Iterator[Page | ScanProblem], depth: int = 1) -> Iterator[Page | ScanProblem]:
+    """Yield from ``pages`` while a thread decodes the next ``depth`` pages.
+
+    Decoding (Pillow, pypdfium2) and reading (OpenCV, numpy) both release the
+    interpreter lock for most of their work, so on two cores the next page is
+    decoded while this one is read. At most ``depth + 1`` pages are held. An
+    exception met while decoding is raised here, in the caller's thread; when
+    the caller stops early the thread stops too.
+    """
+    done = object()
+    queue: Queue = Queue(maxsize=depth)
+    stop = threading.Event()
+
+    def produce() -> None:
+        try:
+            for item in pages:
+                while not stop.is_set():
+                    try:
+                        queue.put((item, None), timeout=0.1)
+                        break
+                    except Full:
+                        continue
+                if stop.is_set():
+                    return
+            queue.put((done, None))
+        except BaseException as exc:  # handed to the consumer
+            queue.put((done, exc))
+
+    thread = threading.Thread(target=produce, name="inkcount-decode", daemon=True)
+    thread.start()
+    try:
+        while True:
+            item, error = queue.get()
+            if item is done:
+                if error is not None:
+                    raise error
+                return
+            yield item
+    finally:
+        stop.set()
+        while thread.is_alive():
+            try:
+                queue.get_nowait()
+            except Empty:
+                thread.join(timeout=0.05)
+        if hasattr(pages, "close"):
+            pages.close()
 
 
 def _reader(model: DigitModel, settings: ReadSettings) -> PageReader:
