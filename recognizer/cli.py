@@ -206,9 +206,9 @@ def run_read(args: argparse.Namespace) -> int:
             _err(f"cannot write {args.digits}: {exc}")
             return 2
         tally = _Tally(threshold, bar, digits_out)
+        for problem in listing_problems:
+            tally.problem(problem)
         if batch is None:
-            for problem in listing_problems:
-                tally.problem(problem)
             for result in read_scans(files, settings=settings, workers=args.workers, model=model):
                 tally.add(result)
         else:
@@ -217,8 +217,6 @@ def run_read(args: argparse.Namespace) -> int:
                 model=model if args.workers == 1 else None,
                 problems=listing_problems, on_result=tally.add,
             )
-            for problem in listing_problems:
-                tally.problems.append(str(problem))
             for path, known_as in summary.known:
                 bar.write(f"inkcount: {path}: already in the batch (as {known_as}), not read again", file=sys.stderr)
     if args.out is not None:
