@@ -25,14 +25,13 @@ Export is refused while fields are still to check, unless ``allow_unchecked``.
 
 from __future__ import annotations
 
-import csv
 import os
 from collections import defaultdict
 from dataclasses import dataclass
 from pathlib import Path
 
 from .batch import Batch
-from .export import field_sort_key, open_csv
+from .export import csv_writer, field_sort_key, open_csv
 from .review import TO_CHECK, UNREADABLE
 
 __all__ = ["ExportResult", "checked_table", "export_checked", "unchecked_message"]
@@ -129,7 +128,7 @@ def export_checked(
     tmp = out.with_name(f".{out.name}.partial")
     try:
         with open_csv(tmp) as fh:
-            writer = csv.writer(fh, lineterminator="\r\n")
+            writer = csv_writer(fh)
             writer.writerow(header)
             writer.writerows(rows)
         os.replace(tmp, out)

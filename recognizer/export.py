@@ -33,7 +33,7 @@ from typing import TextIO
 from .reading import PageRead
 from .scan import ScanProblem
 
-__all__ = ["ValuesTable", "DigitsWriter", "field_sort_key", "open_csv"]
+__all__ = ["ValuesTable", "DigitsWriter", "field_sort_key", "open_csv", "csv_writer"]
 
 
 def open_csv(path: str | os.PathLike) -> TextIO:
@@ -41,7 +41,8 @@ def open_csv(path: str | os.PathLike) -> TextIO:
     return open(path, "w", newline="", encoding="utf-8")
 
 
-def _writer(fh: TextIO):
+def csv_writer(fh: TextIO):
+    """A CSV writer for ``fh`` (from :func:`open_csv`): RFC 4180, CRLF line ends."""
     return csv.writer(fh, lineterminator="\r\n", quoting=csv.QUOTE_MINIMAL)
 
 
@@ -90,7 +91,7 @@ class ValuesTable:
     def write(self, path: str | os.PathLike) -> None:
         names = self._names()
         with open_csv(path) as fh:
-            w = _writer(fh)
+            w = csv_writer(fh)
             w.writerow(self.header())
             for file, page, values, check, problem, template, rules in self.rows:
                 cells = [values.get(n, "") for n in names]
@@ -122,7 +123,7 @@ class DigitsWriter:
 
     def __enter__(self) -> DigitsWriter:
         self._fh = open_csv(self.path)
-        self._w = _writer(self._fh)
+        self._w = csv_writer(self._fh)
         self._w.writerow(DIGIT_COLUMNS)
         return self
 
