@@ -105,10 +105,10 @@ import numpy as np
 from . import __version__
 from .boxes import Box
 from .cells import cut_cell
-from .model import NOT_A_DIGIT, DigitModel, load_model
+from .model import NOT_A_DIGIT, DigitModel, load_model, timestamp
 from .pipeline import ReadSettings, read_scans
 from .reading import PageRead
-from .review import DEFAULT_TARGET_ERROR, READ, Change, refresh_layout, refresh_states, timestamp
+from .review import DEFAULT_TARGET_ERROR, READ, Change, refresh_layout, refresh_states
 from .scan import ScanProblem
 from .template import Template, load_template, template_from_json, template_to_json
 

@@ -75,6 +75,11 @@ class ModelFileError(Exception):
         super().__init__(f"cannot use model file {self.path!r}: {reason}")
 
 
+def timestamp() -> str:
+    """The current time as stored in model and batch files: ISO 8601, UTC, whole seconds."""
+    return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+
+
 def deskew(cells: np.ndarray) -> np.ndarray:
     """Remove the slant of each cell by a moment shear.
 
@@ -294,7 +299,7 @@ class DigitModel:
             ensemble=[[list(np.shape(w)) for w, _ in layers] for layers in self.members],
             weights_sha256=_digest(arrays),
         )
-        meta.setdefault("created", _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"))
+        meta.setdefault("created", timestamp())
         meta.setdefault("mnist_credit", MNIST_CREDIT)
         self.metadata = meta
         with open(path, "wb") as fh:

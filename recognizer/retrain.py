@@ -63,7 +63,7 @@ from threadpoolctl import threadpool_limits
 
 from recognizer.batch import Batch, SampleRef, labelled_samples
 from recognizer.junk import junk_marks
-from recognizer.model import NOT_A_DIGIT, DigitModel, deskew
+from recognizer.model import NOT_A_DIGIT, DigitModel, deskew, timestamp
 from recognizer.training import TrainSettings, _with_offset, augment, calibrate, export_member
 
 Progress = Callable[[str], None]
@@ -320,7 +320,7 @@ def retrain(
     figures["seconds"] = round(seconds, 1)
     model.metadata = {
         "name": str(parent.metadata.get("name", "inkcount")).removesuffix("-retrained") + "-retrained",
-        "created": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+        "created": timestamp(),
         **{k: parent.metadata[k] for k in ("training_data", "mnist_credit", "training_settings")
            if k in parent.metadata},
         "parent": parent.version,

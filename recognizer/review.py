@@ -74,7 +74,6 @@ too but are not undone by :func:`undo` (set the threshold again).
 
 from __future__ import annotations
 
-import datetime as _dt
 import functools
 import getpass
 import json
@@ -89,7 +88,7 @@ import numpy as np
 
 from .boxes import Box
 from .cells import cut_cells
-from .model import CLASSES, NOT_A_DIGIT, DigitModel, load_model
+from .model import CLASSES, NOT_A_DIGIT, DigitModel, load_model, timestamp
 from .reading import UNREADABLE_MARK, field_value
 from .template import Template, check_page, template_from_json
 
@@ -117,7 +116,6 @@ __all__ = [
     "refresh_states",
     "recheck_rules",
     "refresh_layout",
-    "timestamp",
     "default_reviewer",
     "find_field",
     "set_digit",
@@ -166,11 +164,6 @@ class Change:
     page_ids: tuple[int, ...] = ()
     field_ids: tuple[int, ...] = ()
     digit_ids: tuple[int, ...] = ()
-
-
-def timestamp() -> str:
-    """The current time as stored in a batch: ISO 8601, UTC, whole seconds."""
-    return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
 
 
 # --------------------------------------------------------------------------- rules

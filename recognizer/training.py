@@ -111,7 +111,7 @@ from sklearn.neural_network import MLPClassifier
 from threadpoolctl import threadpool_limits
 
 from recognizer.junk import junk_marks, to_mnist_layout
-from recognizer.model import MNIST_CREDIT, NOT_A_DIGIT, DigitModel, deskew
+from recognizer.model import MNIST_CREDIT, NOT_A_DIGIT, DigitModel, deskew, timestamp
 
 Progress = Callable[[str], None]
 
@@ -655,7 +655,7 @@ def train_model(
         f"{calibration['temperature']:.3f}; validation accuracy {calibration['accuracy']:.2%}; {seconds:.0f} s")
     model.metadata = {
         "name": name,
-        "created": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+        "created": timestamp(),
         "training_data": {
             **(data_source or {}),
             "n_digits": int(len(x)),
