@@ -614,9 +614,10 @@ def _restore(conn: sqlite3.Connection, field_id: int, snapshot: dict[str, Any]) 
                      [(v, s, i) for i, v, s in snapshot["digits"]])
 
 
-def _record(conn, *, reviewer, kind, field_id=None, digit_id=None, old=None, new=None,
+def _record(conn, *, reviewer: str | None, kind, field_id=None, digit_id=None, old=None, new=None,
             before=None, undoes=None) -> Action:
     time = timestamp()
+    reviewer = reviewer or default_reviewer()
     cur = conn.execute(
         "INSERT INTO actions (time, reviewer, kind, field_id, digit_id, old_value, new_value, before, undoes) "
         "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
@@ -654,7 +655,7 @@ def _field_action(batch: Batch, kind: str, field_id: int, reviewer: str | None, 
         touched = refresh_states(conn, field_ids=[field_id])
         if digit_id is None:
             old, new = before_value, _field_value(conn, field_id)
-        action = _record(conn, reviewer=reviewer or default_reviewer(), kind=kind, field_id=field_id,
+        action = _record(conn, reviewer=reviewer, kind=kind, field_id=field_id,
                          digit_id=digit_id, old=old, new=new, before=before)
     batch.notify(Change("review", field_ids=_with_others(field_id, touched),
                         digit_ids=() if digit_id is None else (digit_id,)))
@@ -824,7 +825,7 @@ def actions(batch: Batch) -> list[Action]:
 def _reflag_all(batch: Batch, conn: sqlite3.Connection, *, reviewer: str | None, kind: str,
                 old: Any, new: Any, **settings: Any) -> None:
     batch.update_settings(conn, **settings)
-    _record(conn, reviewer=reviewer or default_reviewer(), kind=kind, old=json.dumps(old), new=json.dumps(new))
+    _record(conn, reviewer=reviewer, kind=kind, old=json.dumps(old), new=json.dumps(new))
     refresh_states(conn)
 
 
@@ -898,7 +899,7 @@ def reread_unchecked(batch: Batch, model: DigitModel, *, model_path: str | None 
             summary.threshold = float(model.threshold_for(current.target_error))
             values["threshold"] = summary.threshold
         batch.update_settings(conn, **values)
-        _record(conn, reviewer=reviewer or default_reviewer(), kind="reread",
+        _record(conn, reviewer=reviewer, kind="reread",
                 old=current.model_version, new=model.version)
     pages = batch.rows(
         f"SELECT DISTINCT f.page_id FROM digits d JOIN fields f ON f.id = d.field_id "
