@@ -23,7 +23,7 @@ import math
 from pathlib import Path
 
 from PySide6.QtCore import QPointF, QRectF, Qt, Signal
-from PySide6.QtGui import QBrush, QColor, QFont, QImage, QKeySequence, QPainter, QPen, QPixmap, QShortcut
+from PySide6.QtGui import QBrush, QColor, QFont, QKeySequence, QPainter, QPen, QPixmap, QShortcut
 from PySide6.QtWidgets import (
     QCheckBox,
     QComboBox,
@@ -67,6 +67,8 @@ from recognizer.template import (
     sum_text,
     update_field,
 )
+
+from .batch_access import to_qimage
 
 __all__ = ["TemplateEditor", "draft_from_scan", "TYPE_WORDS"]
 
@@ -321,11 +323,9 @@ class TemplateEditor(QDialog):
     def _show_page(self) -> None:
         ref = self.template.reference
         paper = 255 - ref.image
-        h, w = paper.shape
-        image = QImage(paper.tobytes(), w, h, w, QImage.Format.Format_Grayscale8).copy()
-        item = QGraphicsPixmapItem(QPixmap.fromImage(image))
+        item = QGraphicsPixmapItem(QPixmap.fromImage(to_qimage(paper)))
         item.setTransformationMode(Qt.TransformationMode.SmoothTransformation)
-        item.setScale(ref.width_px / w)
+        item.setScale(ref.width_px / paper.shape[1])
         item.setZValue(-1)
         self.canvas.scene().addItem(item)
         self.canvas.setSceneRect(QRectF(0, 0, ref.width_px, ref.height_px))
