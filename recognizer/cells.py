@@ -35,7 +35,7 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from .boxes import MM_PER_INCH, Box, as_gray_page
+from .boxes import MM_PER_INCH, Box, _positive, as_gray_page
 
 __all__ = ["Cell", "cut_cell", "cut_cells", "remove_box_lines", "is_blank", "normalise"]
 
@@ -79,10 +79,7 @@ class Cell:
 
 
 def _px_per_mm(dpi: float) -> float:
-    dpi = float(dpi)
-    if not np.isfinite(dpi) or dpi <= 0:
-        raise ValueError(f"dpi must be a positive number, got {dpi!r}")
-    return dpi / MM_PER_INCH
+    return _positive(dpi, "dpi") / MM_PER_INCH
 
 
 def cut_cells(image: np.ndarray, boxes: Sequence[Box], *, dpi: float) -> list[Cell]:
