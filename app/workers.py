@@ -188,7 +188,9 @@ def start_worker(worker: ReadWorker | RetrainWorker | RereadWorker, parent: QObj
     # quit() is thread-safe; a direct call lets the window wait() for the thread without deadlock.
     worker.finished.connect(thread.quit, Qt.ConnectionType.DirectConnection)
     worker.failed.connect(thread.quit, Qt.ConnectionType.DirectConnection)
-    thread.finished.connect(worker.deleteLater)
+    # The worker is a Python object without a parent: Python frees it when the
+    # window lets go of it, after the thread has stopped. Also asking Qt to
+    # delete it (deleteLater) would give it two owners.
     thread.finished.connect(thread.deleteLater)
     thread.start()
     return thread
