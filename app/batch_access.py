@@ -4,9 +4,9 @@ notifications on the main thread, and page images as Qt images.
 :class:`ChangeRelay` turns the batch's change notifications, which may come
 from a worker thread, into a Qt signal handled on the main thread. The worker
 and the window share one open batch (a batch has one writer at a time;
-:class:`recognizer.batch.Batch` serialises the two threads' queries and
+:class:`recognizer.batch.store.Batch` serialises the two threads' queries and
 transactions). What the views show (page list counts, one field with its
-boxes, the fields of a page) comes from :mod:`recognizer.batch_queries`.
+boxes, the fields of a page) comes from :mod:`recognizer.batch.queries`.
 """
 
 from __future__ import annotations
@@ -17,8 +17,8 @@ import numpy as np
 from PySide6.QtCore import QObject, Signal
 from PySide6.QtGui import QImage
 
-from recognizer.batch import Batch, Change
-from recognizer.batch_queries import FieldView
+from recognizer.batch.store import Batch, Change
+from recognizer.batch.queries import FieldView
 
 __all__ = ["ChangeRelay", "to_qimage", "ImageCache"]
 

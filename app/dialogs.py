@@ -20,11 +20,11 @@ from PySide6.QtWidgets import (
     QVBoxLayout,
 )
 
-from recognizer.batch import Batch
-from recognizer.batch_queries import open_digits
-from recognizer.checked_export import ExportResult, export_checked
-from recognizer.model import DigitModel
-from recognizer.review import TO_CHECK, ReviewError, set_target_error, set_threshold, state_counts
+from recognizer.batch.store import Batch
+from recognizer.batch.queries import open_digits
+from recognizer.review.checked_export import ExportResult, export_checked
+from recognizer.digits.model import DigitModel
+from recognizer.review.actions import TO_CHECK, ReviewError, set_target_error, set_threshold, state_counts
 
 from .look import CAUTION
 

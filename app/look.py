@@ -12,8 +12,8 @@ from __future__ import annotations
 from PySide6.QtCore import Qt
 from PySide6.QtGui import QColor
 
-from recognizer.cli import CAUTION
-from recognizer.review import CONFIRMED, CORRECTED, READ, TO_CHECK, UNREADABLE
+from recognizer.cli.main import CAUTION
+from recognizer.review.actions import CONFIRMED, CORRECTED, READ, TO_CHECK, UNREADABLE
 
 __all__ = ["STATE_COLOURS", "STATE_MARKS", "STATE_WORDS", "STATE_LINES", "REASON_WORDS", "CAUTION",
            "SHORT_CAUTION", "colour", "reasons_in_words"]

@@ -1,9 +1,9 @@
 """The main window: start page, page list, page view, and the check / sort wall / model tabs.
 
 Everything a clerk does goes through :mod:`recognizer`: reading scans into a
-batch (:func:`recognizer.batch.ingest_scans`, in a worker thread), review
-actions (:mod:`recognizer.review`), strictness and export
-(:mod:`recognizer.checked_export`). The window keeps only its layout and the
+batch (:func:`recognizer.batch.store.ingest_scans`, in a worker thread), review
+actions (:mod:`recognizer.review.actions`), strictness and export
+(:mod:`recognizer.review.checked_export`). The window keeps only its layout and the
 place in the review (:mod:`app.settings`); every review action is committed
 to the batch file by the library the moment it is made.
 """
@@ -38,12 +38,12 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from recognizer.batch import SUFFIX, Batch, BatchFileError, BatchInUseError, Change, IngestSummary
-from recognizer.batch_queries import labelled_count, page_fields, page_summaries, pages_of_fields
-from recognizer.model import DigitModel, ModelFileError, load_model
-from recognizer.retrain import MIN_SAMPLES, RetrainSettings
-from recognizer.scan import SCAN_SUFFIXES, ScanProblem, list_scans
-from recognizer.template import TemplateFileError, load_template
+from recognizer.batch.store import SUFFIX, Batch, BatchFileError, BatchInUseError, Change, IngestSummary
+from recognizer.batch.queries import labelled_count, page_fields, page_summaries, pages_of_fields
+from recognizer.digits.model import DigitModel, ModelFileError, load_model
+from recognizer.digits.retrain import MIN_SAMPLES, RetrainSettings
+from recognizer.scans.files import SCAN_SUFFIXES, ScanProblem, list_scans
+from recognizer.forms.template import TemplateFileError, load_template
 
 from .batch_access import ChangeRelay, ImageCache
 from .dialogs import ExportDialog, StrictnessDialog

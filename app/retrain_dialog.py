@@ -20,10 +20,10 @@ from pathlib import Path
 from PySide6.QtCore import QThread, Signal
 from PySide6.QtWidgets import QDialog, QDialogButtonBox, QFileDialog, QLabel, QProgressBar, QPushButton, QVBoxLayout
 
-from recognizer.batch import Batch
-from recognizer.model import DigitModel
-from recognizer.retrain import RetrainResult, RetrainSettings
-from recognizer.review import RereadSummary
+from recognizer.batch.store import Batch
+from recognizer.digits.model import DigitModel
+from recognizer.digits.retrain import RetrainResult, RetrainSettings
+from recognizer.review.actions import RereadSummary
 
 from .workers import RereadWorker, RetrainWorker, start_worker
 

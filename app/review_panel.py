@@ -17,7 +17,7 @@ Keys (the panel has the focus)::
     PgDn/PgUp   next / previous field without saving
     Esc         forget what was typed
 
-Every action goes through :mod:`recognizer.review` and is committed at once.
+Every action goes through :mod:`recognizer.review.actions` and is committed at once.
 The next fields' crops and page strips are prepared while the clerk looks at
 the current one, so moving on never waits for the disk.
 """
@@ -38,9 +38,9 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from recognizer.batch import Batch, Change
-from recognizer.batch_queries import FieldView, field_states, load_field
-from recognizer.review import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, mark_unreadable, set_field, undo
+from recognizer.batch.store import Batch, Change
+from recognizer.batch.queries import FieldView, field_states, load_field
+from recognizer.review.actions import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, mark_unreadable, set_field, undo
 
 from .batch_access import ImageCache
 from .look import CAUTION, STATE_MARKS, STATE_WORDS, colour, reasons_in_words

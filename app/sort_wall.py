@@ -10,7 +10,7 @@ Select crops with the mouse (click, Shift+click, Ctrl+click) or the keyboard
     Ctrl+Enter   the reading is right for the whole group
 
 A crop handled leaves its group. Every action is one call of
-:mod:`recognizer.review`, committed at once.
+:mod:`recognizer.review.actions`, committed at once.
 """
 
 from __future__ import annotations
@@ -32,11 +32,11 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from recognizer.batch import Batch, Change
-from recognizer.batch_queries import digit_states
-from recognizer.model import CLASSES, NOT_A_DIGIT
-from recognizer.reading import UNREADABLE_MARK
-from recognizer.review import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, set_digit
+from recognizer.batch.store import Batch, Change
+from recognizer.batch.queries import digit_states
+from recognizer.digits.model import CLASSES, NOT_A_DIGIT
+from recognizer.reading.page import UNREADABLE_MARK
+from recognizer.review.actions import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, set_digit
 
 from .batch_access import ImageCache
 

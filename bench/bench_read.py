@@ -30,9 +30,9 @@ from pathlib import Path
 
 import numpy as np
 
-from recognizer import formgen
-from recognizer.handwriting import Writer
-from recognizer.scan import iter_pages, list_scans
+from recognizer.synth import forms as formgen
+from recognizer.synth.handwriting import Writer
+from recognizer.scans.files import iter_pages, list_scans
 
 
 def make_pages(folder: Path, n: int, dpi: int) -> None:

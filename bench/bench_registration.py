@@ -22,12 +22,12 @@ from pathlib import Path
 
 import numpy as np
 
-from recognizer import formgen as fg
-from recognizer.model import load_model
-from recognizer.reading import PageReader
-from recognizer.registration import Registrar
-from recognizer.scan import Page
-from recognizer.template import load_template
+from recognizer.synth import forms as fg
+from recognizer.digits.model import load_model
+from recognizer.reading.page import PageReader
+from recognizer.forms.registration import Registrar
+from recognizer.scans.files import Page
+from recognizer.forms.template import load_template
 
 TEMPLATE = Path(__file__).resolve().parents[1] / "sample_forms" / "orchard_card.json"
 DPIS = (150, 200, 240, 300, 400, 600)

@@ -14,9 +14,9 @@ from pathlib import Path
 
 import numpy as np
 
-from recognizer.formgen import (RenderedForm, fnames, orchard_card, random_values, render_form,
+from recognizer.synth.forms import (RenderedForm, fnames, orchard_card, random_values, render_form,
                                 save_scan, scan_distort)
-from recognizer.handwriting import Writer
+from recognizer.synth.handwriting import Writer
 
 SEED = 2026
 HERE = Path(__file__).resolve().parent

@@ -10,10 +10,10 @@ from pathlib import Path
 
 import pytest
 
-from recognizer.batch_queries import page_summaries
-from recognizer.model import load_model
-from recognizer.retrain import MIN_SAMPLES, RetrainSettings
-from recognizer.review import CONFIRMED, CORRECTED, set_field
+from recognizer.batch.queries import page_summaries
+from recognizer.digits.model import load_model
+from recognizer.digits.retrain import MIN_SAMPLES, RetrainSettings
+from recognizer.review.actions import CONFIRMED, CORRECTED, set_field
 
 from .conftest import truth_values
 

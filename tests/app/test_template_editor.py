@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 from PySide6.QtCore import QPointF, QRectF, Qt
 
-from recognizer.template import load_template
+from recognizer.forms.template import load_template
 
 ROOT = Path(__file__).resolve().parents[2]
 CARD = ROOT / "sample_forms" / "orchard_card.json"
@@ -150,7 +150,7 @@ def test_buttons_say_their_keys_and_have_names(editor):
 
 
 def test_window_reads_with_a_template_and_shows_the_broken_rule(window, qtbot, tmp_path):
-    from recognizer.review import find_field, set_field
+    from recognizer.review.actions import find_field, set_field
 
     scans = ROOT / "sample_forms" / "scans" / "card_01.png"
     with qtbot.waitSignal(window.reading_done, timeout=60_000):

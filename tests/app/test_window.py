@@ -8,8 +8,8 @@ from pathlib import Path
 import pytest
 from PySide6.QtCore import Qt
 
-from recognizer.batch import Batch
-from recognizer.review import CONFIRMED, CORRECTED, TO_CHECK, UNREADABLE, set_field, state_counts
+from recognizer.batch.store import Batch
+from recognizer.review.actions import CONFIRMED, CORRECTED, TO_CHECK, UNREADABLE, set_field, state_counts
 
 from .conftest import SCANS, truth_values
 
@@ -273,7 +273,7 @@ def test_failed_settings_write_is_reported(qtbot, tmp_path):
 
 
 def test_window_command_is_added_to_inkcount():
-    from recognizer.cli import build_parser
+    from recognizer.cli.main import build_parser
 
     from app.cli import run_window
 

@@ -1,0 +1,1 @@
+"""The batch file: one SQLite file with pages, fields, digits and review actions; all its SQL."""

@@ -1,0 +1,241 @@
+"""Command-line commands on batch files: ``review``, ``status`` and ``export``.
+
+``inkcount review BATCH [--list] [--set FILE:PAGE:FIELD=VALUE] [--confirm FILE:PAGE:FIELD]
+[--unreadable FILE:PAGE:FIELD] [--undo] [--reviewer NAME]``
+    List what is left to check, or apply scripted review actions (in the order
+    given; each one is committed as it is done). ``FILE`` is the scan's path as
+    stored in the batch, or its trailing part (``card07.png``) when unambiguous.
+``inkcount status BATCH``
+    Pages, fields and digits counted by state.
+``inkcount export BATCH --out checked.csv [--allow-unchecked] [--audit]``
+    The checked CSV (see :mod:`recognizer.review.checked_export`).
+
+Exit status: 0 done; 1 refused (fields still to check, an undo that is not
+possible); 2 bad arguments or a batch file that cannot be used.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from recognizer.batch.store import Batch, BatchFileError
+from recognizer.review.checked_export import export_checked
+from recognizer.review.actions import (
+    STATES,
+    TO_CHECK,
+    ReviewError,
+    ReviewQueue,
+    confirm,
+    default_reviewer,
+    find_field,
+    mark_unreadable,
+    set_field,
+    state_counts,
+    undo,
+)
+
+__all__ = ["add_batch_commands", "run_review", "run_status", "run_export", "parse_ref"]
+
+
+def add_batch_commands(subparsers) -> None:
+    """Add ``review``, ``status`` and ``export`` to the ``inkcount`` sub-command parsers."""
+    p = subparsers.add_parser(
+        "review",
+        help="list what is left to check in a batch, or apply review actions",
+        description="Without actions, list the fields still to check. Actions are applied in the "
+        "order given and each is saved at once.",
+    )
+    p.add_argument("batch", type=Path, metavar="BATCH", help="batch file (.inkcount)")
+    p.add_argument("--list", action="store_true", help="list the fields still to check (after any actions)")
+    p.add_argument("--set", dest="actions", action=_Append, kind="set", metavar="FILE:PAGE:FIELD=VALUE",
+                   help="give a field its value (repeatable)")
+    p.add_argument("--confirm", dest="actions", action=_Append, kind="confirm", metavar="FILE:PAGE:FIELD",
+                   help="the value read is right (repeatable)")
+    p.add_argument("--unreadable", dest="actions", action=_Append, kind="unreadable", metavar="FILE:PAGE:FIELD",
+                   help="the field cannot be read; it exports empty (repeatable)")
+    p.add_argument("--undo", dest="actions", action=_Append, kind="undo", nargs=0,
+                   help="take back your last action still in effect (repeatable)")
+    p.add_argument("--reviewer", default=default_reviewer(), metavar="NAME",
+                   help="name recorded with each action (default: your user name)")
+    p.set_defaults(func=run_review, actions=[])
+
+    p = subparsers.add_parser("status", help="count pages, fields and digits of a batch by state",
+                              description="Count the pages, fields and digits of a batch by review state.")
+    p.add_argument("batch", type=Path, metavar="BATCH", help="batch file (.inkcount)")
+    p.set_defaults(func=run_status)
+
+    p = subparsers.add_parser(
+        "export",
+        help="write the checked values of a batch to a CSV",
+        description="Write one CSV row per page with the values after review. Refused while fields "
+        "are still to check, unless --allow-unchecked.",
+    )
+    p.add_argument("batch", type=Path, metavar="BATCH", help="batch file (.inkcount)")
+    p.add_argument("--out", "-o", required=True, type=Path, metavar="CSV", help="CSV file to write")
+    p.add_argument("--allow-unchecked", action="store_true",
+                   help="export even with fields still to check (listed in a column unchecked_fields)")
+    p.add_argument("--audit", action="store_true",
+                   help="add <field>_state and <field>_lowest_confidence columns")
+    p.set_defaults(func=run_export)
+
+
+class _Append(argparse.Action):
+    """Collect ``(kind, value)`` pairs of several options in one list, in command-line order."""
+
+    def __init__(self, option_strings, dest, *, kind: str, **kwargs):
+        self.kind = kind
+        super().__init__(option_strings, dest, **kwargs)
+
+    def __call__(self, parser, namespace, values, option_string=None):
+        items = list(getattr(namespace, self.dest) or [])
+        items.append((self.kind, values if isinstance(values, str) else None))
+        setattr(namespace, self.dest, items)
+
+
+def _err(message: str) -> None:
+    print(f"inkcount: {message}", file=sys.stderr)
+
+
+def parse_ref(text: str, *, with_value: bool = False) -> tuple[str, int, str, str | None]:
+    """Split ``FILE:PAGE:FIELD`` (or ``FILE:PAGE:FIELD=VALUE``) into its parts.
+
+    The file part may itself contain ``:`` (it is split from the right).
+    """
+    value = None
+    if with_value:
+        text, eq, value = text.rpartition("=")
+        if not eq:
+            raise ReviewError(f"expected FILE:PAGE:FIELD=VALUE, got {text!r}")
+    parts = text.rsplit(":", 2)
+    if len(parts) != 3 or not all(parts) or not parts[1].isdigit():
+        raise ReviewError(f"expected FILE:PAGE:FIELD (page a number), got {text!r}")
+    return parts[0], int(parts[1]), parts[2], value
+
+
+def run_review(args: argparse.Namespace) -> int:
+    try:
+        batch = Batch.open(args.batch, read_only=not args.actions)
+    except BatchFileError as exc:
+        _err(str(exc))
+        return 2
+    with batch:
+        try:
+            plan = [_resolve(batch, kind, text) for kind, text in args.actions]
+        except ReviewError as exc:
+            _err(f"{exc}; nothing was changed")
+            return 2
+        status = 0
+        for kind, ref, field_id, value in plan:
+            try:
+                print(_apply(batch, kind, ref, field_id, value, args.reviewer))
+            except ReviewError as exc:
+                _err(str(exc))
+                status = 1
+                break
+        if args.list or not args.actions:
+            _print_list(batch)
+    return status
+
+
+def _resolve(batch: Batch, kind: str, text: str | None) -> tuple[str, str, int | None, str | None]:
+    if kind == "undo":
+        return kind, "", None, None
+    file, page, name, value = parse_ref(text, with_value=kind == "set")
+    return kind, f"{file}:{page}:{name}", find_field(batch, file, page, name), value
+
+
+def _apply(batch: Batch, kind: str, ref: str, field_id: int | None, value: str | None, reviewer: str) -> str:
+    if kind == "undo":
+        action = undo(batch, reviewer=reviewer)
+        if action is None:
+            return f"nothing of {reviewer}'s to undo"
+        return f"undone: {_field_ref(batch, action.field_id)} is {action.new_value!r} again (was {action.old_value!r})"
+    if kind == "set":
+        action = set_field(batch, field_id, value, reviewer=reviewer)
+        return f"set {ref} = {action.new_value!r} (was {action.old_value!r})"
+    if kind == "confirm":
+        action = confirm(batch, field=field_id, reviewer=reviewer)
+        return f"confirmed {ref} = {action.new_value!r}"
+    mark_unreadable(batch, field=field_id, reviewer=reviewer)
+    return f"marked {ref} unreadable"
+
+
+def _field_ref(batch: Batch, field_id: int) -> str:
+    r = batch.rows(
+        "SELECT fl.path, p.page, f.name FROM fields f JOIN pages p ON p.id = f.page_id "
+        "JOIN files fl ON fl.id = p.file_id WHERE f.id = ?",
+        (field_id,),
+    )[0]
+    return f"{r[0]}:{r[1]}:{r[2]}"
+
+
+def _table(rows: list[list[str]]) -> str:
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    return "\n".join("  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in rows)
+
+
+def _print_list(batch: Batch) -> None:
+    items = ReviewQueue(batch, order="page").items()
+    problems = batch.rows(
+        "SELECT fl.path, p.page, p.problem FROM pages p JOIN files fl ON fl.id = p.file_id "
+        "WHERE p.problem IS NOT NULL ORDER BY fl.id, p.page"
+    )
+    pages = len({(i.file, i.page) for i in items})
+    print(f"{len(items)} field(s) to check on {pages} page(s); {len(problems)} page(s) or file(s) not read.")
+    if items:
+        rows = [["file", "page", "field", "value read", "lowest confidence", "why"]]
+        rows += [
+            [i.file, str(i.page), i.field, i.read or "(empty)",
+             "" if i.confidence is None else f"{i.confidence:.3f}", ", ".join(i.why)]
+            for i in items
+        ]
+        print(_table(rows))
+    for path, page, problem in problems:
+        print(f"not read: {path}" + ("" if page is None else f" page {page}") + f": {problem}")
+
+
+def run_status(args: argparse.Namespace) -> int:
+    try:
+        batch = Batch.open(args.batch, read_only=True)
+    except BatchFileError as exc:
+        _err(str(exc))
+        return 2
+    with batch:
+        counts = state_counts(batch)
+        settings = batch.settings
+        files = batch.rows("SELECT COUNT(*) FROM files")[0][0]
+    print(f"{args.batch}: {files} file(s)")
+    if settings.threshold is not None:
+        how = (f"from a target residual error of {settings.target_error * 100:g} %"
+               if settings.threshold_source == "target" else "set by hand")
+        print(f"threshold {settings.threshold:.4f} ({how}); model {settings.model_version}")
+    rows = [["", *STATES, "total"]]
+    for what in ("pages", "fields", "digits"):
+        c = counts[what]
+        rows.append([what, *(str(c.get(s, 0)) for s in STATES), str(sum(c.values()))])
+    print(_table(rows))
+    left = counts["fields"].get(TO_CHECK, 0)
+    print("Nothing left to check." if not left else f"{left} field(s) still to check.")
+    return 0
+
+
+def run_export(args: argparse.Namespace) -> int:
+    try:
+        batch = Batch.open(args.batch, read_only=True)
+    except BatchFileError as exc:
+        _err(str(exc))
+        return 2
+    try:
+        with batch:
+            result = export_checked(batch, args.out, allow_unchecked=args.allow_unchecked, audit=args.audit)
+    except OSError as exc:
+        _err(f"cannot write {args.out}: {exc}")
+        return 2
+    if not result:
+        _err(result.problem)
+        return 1
+    note = f" ({result.unchecked} field(s) not checked, listed in unchecked_fields)" if result.unchecked else ""
+    print(f"Wrote {result.rows} row(s) to {args.out}{note}.")
+    return 0

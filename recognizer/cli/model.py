@@ -1,0 +1,221 @@
+"""``inkcount model ...``: train, evaluate, retrain and use the digit model from the command line."""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+import sys
+import time
+import zipfile
+from pathlib import Path
+
+import numpy as np
+
+from recognizer.digits.model import ModelFileError, default_model_path, load_model
+
+
+def add_model_commands(subparsers: argparse._SubParsersAction) -> None:
+    """Add the ``model`` command (``train``, ``evaluate``, ``retrain``, ``use``) to an argparse sub-parser set."""
+    model = subparsers.add_parser("model", help="train, evaluate, retrain or switch the digit model")
+    sub = model.add_subparsers(dest="model_command", required=True)
+
+    train = sub.add_parser("train", help="train a digit model on a file of labelled digits")
+    train.add_argument("--data", required=True, type=Path,
+                       help="npz with 'images' (n, 28, 28) uint8 white ink on black and 'labels' (n,) 0..9")
+    train.add_argument("-o", "--output", required=True, type=Path, help="model file to write (.npz)")
+    train.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    train.add_argument("--quick", action="store_true", help="small settings: seconds instead of minutes")
+    train.set_defaults(func=run_train)
+
+    evaluate = sub.add_parser("evaluate", help="measure a model on the held-out MNIST digits")
+    evaluate.add_argument("--model", type=Path, default=None, help="model file (default: the shipped model)")
+    evaluate.add_argument("--report", type=Path, default=None,
+                          help="directory for figures.json, accuracy_reject.png, reliability.png")
+    evaluate.set_defaults(func=run_evaluate)
+
+    retrain = sub.add_parser(
+        "retrain", help="fine-tune the model on the digits people corrected or confirmed in batches",
+        description="Fine-tune a model on the corrected and confirmed digits of one or more batches "
+        "(mixed with replayed base training digits), hold part of them back, and print accuracy before "
+        "and after on that part and on the held-out MNIST digits. A model worse on either is not written "
+        "unless --force is given.")
+    retrain.add_argument("--batch", dest="batches", action="append", required=True, type=Path, metavar="BATCH",
+                         help="batch file (.inkcount) with reviewed digits (repeatable)")
+    retrain.add_argument("-o", "--output", required=True, type=Path, help="model file to write (.npz)")
+    retrain.add_argument("--model", type=Path, default=None, help="model to start from (default: the shipped model)")
+    retrain.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    retrain.add_argument("--epochs", type=int, default=None, help="fine-tuning epochs (default 8)")
+    retrain.add_argument("--force", action="store_true", help="write the model even if it is worse")
+    retrain.set_defaults(func=run_retrain)
+
+    use = sub.add_parser(
+        "use", help="re-read a batch's unchecked digits with another model",
+        description="Read again, with MODEL, every digit of the batch no person has handled; digits "
+        "corrected, confirmed or marked unreadable keep their values. The batch then uses MODEL.")
+    use.add_argument("model", type=Path, metavar="MODEL", help="model file (.npz)")
+    use.add_argument("--batch", required=True, type=Path, metavar="BATCH", help="batch file (.inkcount)")
+    use.set_defaults(func=run_use)
+
+
+def load_training_data(path: Path) -> tuple[np.ndarray, np.ndarray]:
+    """Read and check a training file.
+
+    Returns
+    -------
+    images : ndarray, uint8, shape (n, 28, 28)
+    labels : ndarray, int64, shape (n,), values 0..9
+
+    Raises
+    ------
+    ValueError
+        With a message naming the file and the problem.
+    """
+    if not path.is_file():
+        raise ValueError(f"{path}: file not found")
+    if not zipfile.is_zipfile(path):
+        raise ValueError(f"{path}: not an .npz archive (or truncated)")
+    try:
+        with np.load(path, allow_pickle=False) as npz:
+            missing = {"images", "labels"} - set(npz.files)
+            if missing:
+                raise ValueError(f"{path}: missing array(s) {sorted(missing)}")
+            images, labels = npz["images"], npz["labels"]
+    except (OSError, EOFError, zipfile.BadZipFile) as exc:
+        raise ValueError(f"{path}: not a readable .npz file ({exc})") from None
+    except ValueError as exc:
+        if str(exc).startswith(str(path)):
+            raise
+        raise ValueError(f"{path}: refused ({exc})") from None
+    if images.ndim != 3 or images.shape[1:] != (28, 28) or images.dtype != np.uint8:
+        raise ValueError(f"{path}: 'images' must be uint8 (n, 28, 28), got {images.dtype} {images.shape}")
+    if labels.shape != (len(images),) or labels.dtype.kind not in "iu":
+        raise ValueError(f"{path}: 'labels' must be {len(images)} integers, got {labels.dtype} {labels.shape}")
+    if len(labels) == 0 or labels.min() < 0 or labels.max() > 9:
+        raise ValueError(f"{path}: labels must be digits 0..9")
+    return images, labels.astype(np.int64)
+
+
+def run_train(args: argparse.Namespace) -> int:
+    """Handler of ``inkcount model train``; returns the exit code."""
+    from recognizer.digits.evaluation import evaluate_model, format_report, load_heldout
+    from recognizer.digits.training import QUICK_SETTINGS, TrainSettings, train_model
+
+    try:
+        images, labels = load_training_data(args.data)
+    except ValueError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    settings = QUICK_SETTINGS if args.quick else TrainSettings()
+    source = {
+        "file": args.data.name,
+        "file_sha256": hashlib.sha256(args.data.read_bytes()).hexdigest(),
+        "description": "MNIST training digits (uint8 28x28, white ink on black); " + (
+            "the MNIST database of handwritten digits, Yann LeCun, Corinna Cortes, Christopher J.C. Burges"),
+    }
+    start = time.perf_counter()
+    model = train_model(images, labels, seed=args.seed, settings=settings,
+                        progress=lambda msg: print(msg, flush=True),
+                        name="inkcount-quick" if args.quick else "inkcount-base", data_source=source)
+    print(f"training took {time.perf_counter() - start:.0f} s")
+    try:
+        figures = evaluate_model(model, *load_heldout())
+    except RuntimeError as exc:
+        print(f"note: no held-out figures ({exc})")
+    else:
+        model.metadata["evaluation"] = {k: v for k, v in figures.items() if k not in ("confidence", "correct")}
+        print(format_report(figures))
+    args.output.parent.mkdir(parents=True, exist_ok=True)
+    model.save(args.output)
+    print(f"wrote {args.output} ({args.output.stat().st_size / 1e6:.2f} MB), version {model.version}")
+    return 0
+
+
+def run_evaluate(args: argparse.Namespace) -> int:
+    """Handler of ``inkcount model evaluate``; returns the exit code."""
+    from recognizer.digits.evaluation import evaluate_model, format_report, load_heldout, write_report
+
+    path = args.model or default_model_path()
+    try:
+        model = load_model(path)
+        images, labels = load_heldout()
+    except (ModelFileError, RuntimeError) as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    figures = evaluate_model(model, images, labels)
+    print(format_report(figures))
+    if args.report is not None:
+        for written in write_report(figures, args.report):
+            print(f"wrote {written}")
+    return 0
+
+
+def run_retrain(args: argparse.Namespace) -> int:
+    """Handler of ``inkcount model retrain``; returns the exit code (1 when refused as worse)."""
+    from dataclasses import replace
+
+    from recognizer.batch.store import Batch, BatchFileError
+    from recognizer.digits.evaluation import load_heldout
+    from recognizer.digits.retrain import RetrainSettings, gather_cells, retrain
+
+    settings = replace(RetrainSettings(seed=args.seed), **({"epochs": args.epochs} if args.epochs else {}))
+    try:
+        parent = load_model(args.model or default_model_path())
+        heldout = load_heldout()
+    except (ModelFileError, RuntimeError) as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    opened = []
+    try:
+        for path in args.batches:
+            opened.append(Batch.open(path, read_only=True))
+        samples = gather_cells(opened)
+        counts = [{"file": b.path.name, "samples": sum(s == str(b.path) for s in samples.sources)} for b in opened]
+    except BatchFileError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    finally:
+        for b in opened:
+            b.close()
+    for c in counts:
+        print(f"{c['file']}: {c['samples']} corrected or confirmed digits")
+    try:
+        result = retrain(parent, samples, heldout=heldout, settings=settings, batches=counts,
+                         progress=lambda msg: print(msg, flush=True))
+    except ValueError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    f = result.figures
+    print(f"held-back new digits ({f['n_held_back']}): {f['before']['new_samples']:.2%} -> "
+          f"{f['after']['new_samples']:.2%}")
+    print(f"held-out MNIST digits ({f['n_heldout']}): {f['before']['heldout']:.2%} -> {f['after']['heldout']:.2%}")
+    if not result.accepted:
+        for reason in result.reasons:
+            print(f"worse: {reason}")
+        if not args.force:
+            print("not written (use --force to write it anyway)")
+            return 1
+        print("written anyway (--force)")
+    args.output.parent.mkdir(parents=True, exist_ok=True)
+    result.model.save(args.output)
+    print(f"wrote {args.output} ({args.output.stat().st_size / 1e6:.2f} MB), version {result.model.version}, "
+          f"parent {parent.version}")
+    return 0
+
+
+def run_use(args: argparse.Namespace) -> int:
+    """Handler of ``inkcount model use``; returns the exit code."""
+    from recognizer.batch.store import Batch, BatchFileError
+    from recognizer.review.actions import reread_unchecked
+
+    try:
+        model = load_model(args.model)
+        batch = Batch.open(args.batch)
+    except (ModelFileError, BatchFileError) as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    with batch:
+        summary = reread_unchecked(batch, model, model_path=str(args.model.resolve()))
+    threshold = "unchanged" if summary.threshold is None else f"{summary.threshold:.4f}"
+    print(f"re-read {summary.digits} unchecked digits with {model.version}: {summary.changed} read differently; "
+          f"threshold {threshold}")
+    return 0

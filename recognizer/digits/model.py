@@ -1,0 +1,451 @@
+"""Digit model: numpy inference and the model file format.
+
+The model reads one handwritten character per cell and answers with
+probabilities for eleven classes: the digits ``"0"`` .. ``"9"`` and
+``"not_a_digit"`` (scribbles, crossed-out digits, stray marks, left-over box
+lines).  It is a small ensemble of MLPs (ReLU hidden layers, softmax output)
+whose averaged probabilities are calibrated by temperature scaling
+(Guo et al. 2017).  Only numpy is needed here; training lives in
+:mod:`recognizer.digits.training` (scikit-learn).
+
+File format
+-----------
+One ``.npz`` archive, read with ``np.load(path, allow_pickle=False)``:
+
+* ``m{i}_W{j}``, ``m{i}_b{j}`` -- weights and biases of layer ``j`` of ensemble
+  member ``i`` (float32 or float16), shapes as listed in the metadata layout;
+* ``calib_threshold``, ``calib_residual`` -- the validation curve behind
+  :meth:`DigitModel.threshold_for` (ascending confidence thresholds and the
+  estimated residual error among the digits kept at each threshold; how it
+  was estimated is in the metadata entry ``calibration``);
+* ``replay_images``, ``replay_labels`` (format version 2, optional) -- a
+  small stratified sample of the training digits, uint8 (n, 28, 28) white
+  ink on black and uint8 (n,), mixed into fine-tuning
+  (:mod:`recognizer.digits.retrain`) so that a retrained model does not forget;
+* ``validation_images``, ``validation_labels`` (version 2, optional) -- the
+  validation digits behind the calibration, same types, so that a
+  fine-tuned model can be calibrated again on the same evidence;
+* ``metadata`` -- a 0-d unicode array holding a JSON object: format name and
+  version, classes, input size, preprocessing, temperature, ensemble layout,
+  training data and provenance, training settings, evaluation figures,
+  creation time, library versions and ``weights_sha256`` (a digest of every
+  other array, checked on load so an altered file is refused).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import json
+import zipfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import cv2
+import numpy as np
+
+CLASSES: tuple[str, ...] = tuple(str(d) for d in range(10)) + ("not_a_digit",)
+NOT_A_DIGIT: int = 10
+
+FORMAT_NAME = "inkcount-digit-model"
+FORMAT_VERSION = 2
+CELL_SIZE = 28
+PREPROCESSING = (
+    "clip to 0..1 (white ink on black, MNIST layout 28x28)",
+    "moment deskew: shear rows about the centre of mass so that mu11 = 0",
+    "flatten row-major to 784 values",
+)
+MNIST_CREDIT = (
+    "MNIST database of handwritten digits, Yann LeCun, Corinna Cortes, "
+    "Christopher J.C. Burges; commonly distributed under CC BY-SA 3.0"
+)
+_CURVE_ARRAYS = ("calib_threshold", "calib_residual")
+_DIGIT_SETS = ("replay", "validation")
+_DIGIT_ARRAYS = tuple(f"{k}_{a}" for k in _DIGIT_SETS for a in ("images", "labels"))
+_MAX_SHEAR = 1.0
+
+
+class ModelFileError(Exception):
+    """A model file that cannot be used; the message names the file and the reason."""
+
+    def __init__(self, path: str | Path, reason: str) -> None:
+        self.path = str(path)
+        self.reason = reason
+        super().__init__(f"cannot use model file {self.path!r}: {reason}")
+
+
+def timestamp() -> str:
+    """The current time as stored in model and batch files: ISO 8601, UTC, whole seconds."""
+    return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+
+
+def deskew(cells: np.ndarray) -> np.ndarray:
+    """Remove the slant of each cell by a moment shear.
+
+    Each row is shifted horizontally by ``s * (y - cy)`` with
+    ``s = mu11 / mu02`` (second-order central moments of the ink) so that the
+    cross moment ``mu11`` of the result is zero; the centre of mass stays put.
+    Rows are resampled with linear interpolation (``cv2.warpAffine``),
+    outside pixels are 0.
+
+    Parameters
+    ----------
+    cells : ndarray, shape (n, 28, 28) or (28, 28)
+        Ink intensity in 0..1 (white ink on black).
+
+    Returns
+    -------
+    ndarray, float32, same shape as ``cells``, values in 0..1.
+        Cells without ink come back unchanged.  The shear factor is clamped
+        to ``[-1, 1]`` so that a stray line cannot be sheared off the cell.
+    """
+    a = np.clip(np.asarray(cells, dtype=np.float32), 0.0, 1.0)
+    single = a.ndim == 2
+    if single:
+        a = a[None]
+    if a.ndim != 3:
+        raise ValueError(f"cells must be (n, h, w) or (h, w), got shape {a.shape}")
+    n, h, w = a.shape
+    if n == 0:
+        return a.copy()
+    ys = np.arange(h, dtype=np.float32)
+    xs = np.arange(w, dtype=np.float32)
+    rows = a.sum(axis=2)  # (n, h)
+    cols = a.sum(axis=1)  # (n, w)
+    mass = rows.sum(axis=1)
+    safe = np.where(mass > 1e-6, mass, 1.0)
+    cy = rows @ ys / safe
+    cx = cols @ xs / safe
+    dy = ys[None, :] - cy[:, None]  # (n, h)
+    dx = xs[None, :] - cx[:, None]  # (n, w)
+    mu02 = np.einsum("ny,ny->n", rows, dy * dy) / safe
+    mu11 = np.einsum("nyx,ny,nx->n", a, dy, dx, optimize=True) / safe
+    shear = np.where(mu02 > 1e-2, mu11 / np.where(mu02 > 1e-2, mu02, 1.0), 0.0)
+    shear = np.clip(shear, -_MAX_SHEAR, _MAX_SHEAR)
+    out = np.empty_like(a)
+    flags = cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP
+    m = np.zeros((n, 2, 3))
+    m[:, 0, 0] = m[:, 1, 1] = 1.0
+    m[:, 0, 1] = shear
+    m[:, 0, 2] = -shear * cy  # output (x, y) samples the input at (x + s * (y - cy), y)
+    for i in range(n):
+        cv2.warpAffine(a[i], m[i], (w, h), dst=out[i], flags=flags, borderMode=cv2.BORDER_CONSTANT)
+    np.clip(out, 0.0, 1.0, out=out)
+    return out[0] if single else out
+
+
+def _softmax(z: np.ndarray) -> np.ndarray:
+    z = z - z.max(axis=1, keepdims=True)
+    e = np.exp(z)
+    return e / e.sum(axis=1, keepdims=True)
+
+
+def _digest(arrays: dict[str, np.ndarray]) -> str:
+    """sha256 over name, dtype, shape and bytes of every array, in name order."""
+    h = hashlib.sha256()
+    for name in sorted(arrays):
+        arr = np.ascontiguousarray(arrays[name])
+        h.update(f"{name}|{arr.dtype.str}|{arr.shape}|".encode())
+        h.update(arr.tobytes())
+    return h.hexdigest()
+
+
+def _monotone_residual(residual: np.ndarray) -> np.ndarray:
+    """Residual error made non-increasing in the threshold (max over higher thresholds)."""
+    return np.maximum.accumulate(residual[::-1])[::-1]
+
+
+@dataclass
+class DigitModel:
+    """An ensemble of ReLU MLPs with temperature-scaled averaged probabilities.
+
+    Attributes
+    ----------
+    members : list of list of (W, b)
+        Per member, per layer: ``W`` (n_in, n_out) and ``b`` (n_out,).
+    temperature : float
+        Temperature T > 0 applied as ``softmax(log(p_mean) / T)``.
+    curve_threshold, curve_residual : ndarray, shape (k,)
+        Validation curve: ascending confidence thresholds and the residual
+        error (share of wrong digits) among digits with confidence >= threshold.
+    metadata : dict
+        Everything stored in the file's JSON entry.
+    classes : tuple of str
+        Class names, index 10 is ``"not_a_digit"``.
+    replay_images, replay_labels : ndarray or None
+        (n, 28, 28) uint8 training digits kept for fine-tuning (white ink on
+        black) and their (n,) uint8 labels 0..9.
+    validation_images, validation_labels : ndarray or None
+        The validation digits of the calibration, same types.
+    """
+
+    members: list[list[tuple[np.ndarray, np.ndarray]]]
+    temperature: float = 1.0
+    curve_threshold: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    curve_residual: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    metadata: dict[str, Any] = field(default_factory=dict)
+    classes: tuple[str, ...] = CLASSES
+    replay_images: np.ndarray | None = None
+    replay_labels: np.ndarray | None = None
+    validation_images: np.ndarray | None = None
+    validation_labels: np.ndarray | None = None
+
+    @property
+    def version(self) -> str:
+        """Short identification: name, creation date and a short content hash."""
+        name = self.metadata.get("name", "model")
+        created = str(self.metadata.get("created", ""))[:10] or "undated"
+        digest = self.metadata.get("weights_sha256") or _digest(self._arrays())
+        return f"{name}-{created}-{digest[:8]}"
+
+    def predict_proba(self, cells: np.ndarray) -> np.ndarray:
+        """Calibrated class probabilities.
+
+        Parameters
+        ----------
+        cells : ndarray, shape (n, 28, 28)
+            Ink in 0..1, MNIST layout; ``n`` may be 0.
+
+        Returns
+        -------
+        ndarray, float64, shape (n, 11)
+            Rows sum to 1; column ``NOT_A_DIGIT`` is "not a digit".
+        """
+        a = np.asarray(cells)
+        if a.ndim != 3 or a.shape[1:] != (CELL_SIZE, CELL_SIZE):
+            raise ValueError(f"cells must have shape (n, 28, 28), got {a.shape}")
+        features = deskew(a).reshape(len(a), CELL_SIZE * CELL_SIZE)
+        return self._calibrate(self._ensemble_proba(features))
+
+    def _ensemble_proba(self, features: np.ndarray) -> np.ndarray:
+        """Mean of the members' softmax outputs, (n, 784) -> (n, 11) float64."""
+        total = np.zeros((len(features), len(self.classes)))
+        for layers in self.members:
+            x = features.astype(np.float32, copy=False)
+            for j, (w, b) in enumerate(layers):
+                x = x @ w.astype(np.float32, copy=False) + b.astype(np.float32, copy=False)
+                if j < len(layers) - 1:
+                    np.maximum(x, 0.0, out=x)
+            total += _softmax(x.astype(np.float64))
+        return total / max(len(self.members), 1)
+
+    def _calibrate(self, proba: np.ndarray) -> np.ndarray:
+        if self.temperature == 1.0:
+            return proba
+        return _softmax(np.log(np.clip(proba, 1e-12, None)) / self.temperature)
+
+    def threshold_for(self, target_residual_error: float = 0.001) -> float:
+        """Confidence threshold below which digits should go to review.
+
+        Read from the validation curve, made non-increasing in the threshold
+        (each point takes the worst residual error of all higher thresholds),
+        and linearly interpolated between its points.
+
+        Parameters
+        ----------
+        target_residual_error : float
+            Wanted share of wrong digits among those kept (e.g. 0.001 = 0.1 %).
+
+        Returns
+        -------
+        float in 0..1
+            0.0 if the target is met with no review at all; 1.0 (everything to
+            review) if the target is below anything the validation split can
+            show (e.g. a target of 0 while the best kept set still had an error).
+        """
+        thr = np.asarray(self.curve_threshold, dtype=np.float64)
+        if thr.size == 0:
+            raise ValueError("this model carries no calibration curve")
+        res = _monotone_residual(np.asarray(self.curve_residual, dtype=np.float64))
+        target = float(target_residual_error)
+        if target >= res[0]:
+            return 0.0
+        ok = np.nonzero(res <= target)[0]
+        if ok.size == 0:
+            return 1.0
+        i = int(ok[0])  # first threshold meeting the target; i >= 1
+        r_hi, r_lo = res[i - 1], res[i]
+        t_lo, t_hi = thr[i - 1], thr[i]
+        share = (r_hi - target) / (r_hi - r_lo) if r_hi > r_lo else 1.0
+        return float(t_lo + share * (t_hi - t_lo))
+
+    def _arrays(self) -> dict[str, np.ndarray]:
+        arrays: dict[str, np.ndarray] = {}
+        for i, layers in enumerate(self.members):
+            for j, (w, b) in enumerate(layers):
+                arrays[f"m{i}_W{j}"] = np.asarray(w)
+                arrays[f"m{i}_b{j}"] = np.asarray(b)
+        arrays["calib_threshold"] = np.asarray(self.curve_threshold, dtype=np.float64)
+        arrays["calib_residual"] = np.asarray(self.curve_residual, dtype=np.float64)
+        for kind in _DIGIT_SETS:
+            images, labels = getattr(self, f"{kind}_images"), getattr(self, f"{kind}_labels")
+            if images is not None:
+                arrays[f"{kind}_images"] = np.asarray(images, dtype=np.uint8)
+                arrays[f"{kind}_labels"] = np.asarray(labels, dtype=np.uint8)
+        return arrays
+
+    def save(self, path: str | Path) -> None:
+        """Write the model as one ``.npz`` (see the module docstring for the layout)."""
+        arrays = self._arrays()
+        meta = dict(self.metadata)
+        meta.update(
+            format=FORMAT_NAME,
+            format_version=FORMAT_VERSION,
+            classes=list(self.classes),
+            input_shape=[CELL_SIZE, CELL_SIZE],
+            preprocessing=list(PREPROCESSING),
+            temperature=float(self.temperature),
+            ensemble=[[list(np.shape(w)) for w, _ in layers] for layers in self.members],
+            weights_sha256=_digest(arrays),
+        )
+        meta.setdefault("created", timestamp())
+        meta.setdefault("mnist_credit", MNIST_CREDIT)
+        self.metadata = meta
+        with open(path, "wb") as fh:
+            np.savez_compressed(fh, metadata=np.array(json.dumps(meta, indent=1)), **arrays)
+
+
+def default_model_path() -> Path:
+    """Path of the shipped model ``recognizer/models/base.npz``."""
+    return Path(__file__).resolve().parents[1] / "models" / "base.npz"
+
+
+def load_model(path: str | Path | None = None) -> DigitModel:
+    """Read and check a model file.
+
+    Parameters
+    ----------
+    path : str or Path, optional
+        ``.npz`` model file; ``None`` loads the shipped model.
+
+    Returns
+    -------
+    DigitModel
+
+    Raises
+    ------
+    ModelFileError
+        Missing file, not an npz archive, truncated or damaged, pickled/object
+        arrays inside, missing arrays, wrong shapes, newer format version,
+        bad JSON, or a checksum mismatch.
+    """
+    path = Path(default_model_path() if path is None else path)
+    if not path.is_file():
+        raise ModelFileError(path, "file not found")
+    if not zipfile.is_zipfile(path):
+        raise ModelFileError(path, "not an .npz archive, or truncated (no zip directory found)")
+    arrays = _read_arrays(path)
+    meta = _read_metadata(path, arrays.pop("metadata", None))
+    members = _read_members(path, arrays, meta)
+    for name in _CURVE_ARRAYS:
+        if name not in arrays:
+            raise ModelFileError(path, f"missing array {name!r}")
+        if arrays[name].ndim != 1 or arrays[name].shape != arrays[_CURVE_ARRAYS[0]].shape:
+            raise ModelFileError(path, f"wrong shape {arrays[name].shape} for {name!r}")
+    for kind in _DIGIT_SETS:
+        _check_digit_set(path, arrays, kind)
+    if _digest(arrays) != meta.get("weights_sha256"):
+        raise ModelFileError(path, "checksum mismatch: the weights were altered or damaged")
+    try:
+        temperature = float(meta["temperature"])
+    except (KeyError, TypeError, ValueError):
+        raise ModelFileError(path, "metadata has no valid 'temperature'") from None
+    if not temperature > 0:
+        raise ModelFileError(path, f"temperature must be > 0, got {temperature}")
+    return DigitModel(
+        members=members,
+        temperature=temperature,
+        curve_threshold=arrays["calib_threshold"],
+        curve_residual=arrays["calib_residual"],
+        metadata=meta,
+        classes=tuple(meta["classes"]),
+        **{name: arrays.get(name) for name in _DIGIT_ARRAYS},
+    )
+
+
+def _check_digit_set(path: Path, arrays: dict[str, np.ndarray], kind: str) -> None:
+    """A stored digit set comes as a pair: uint8 (n, 28, 28) images and n uint8 labels 0..9."""
+    names = (f"{kind}_images", f"{kind}_labels")
+    present = [name for name in names if name in arrays]
+    if not present:
+        return
+    if len(present) == 1:
+        raise ModelFileError(path, f"{present[0]!r} without its partner array")
+    images, labels = arrays[names[0]], arrays[names[1]]
+    if images.dtype != np.uint8 or images.ndim != 3 or images.shape[1:] != (CELL_SIZE, CELL_SIZE):
+        raise ModelFileError(path, f"{names[0]!r} must be uint8 (n, 28, 28), got {images.dtype} {images.shape}")
+    if labels.dtype != np.uint8 or labels.shape != (len(images),) or (labels.size and labels.max() > 9):
+        raise ModelFileError(path, f"{names[1]!r} must be {len(images)} uint8 digits 0..9")
+
+
+def _read_arrays(path: Path) -> dict[str, np.ndarray]:
+    try:
+        with np.load(path, allow_pickle=False) as npz:
+            return {name: npz[name] for name in npz.files}
+    except ValueError as exc:
+        if "pickle" in str(exc).lower():
+            raise ModelFileError(path, "contains a pickled (object) array; refused for safety") from None
+        raise ModelFileError(path, f"damaged or truncated archive ({exc})") from None
+    except (OSError, EOFError, zipfile.BadZipFile, KeyError) as exc:
+        raise ModelFileError(path, f"damaged or truncated archive ({exc})") from None
+
+
+def _read_metadata(path: Path, entry: np.ndarray | None) -> dict[str, Any]:
+    if entry is None:
+        raise ModelFileError(path, "missing array 'metadata'")
+    if entry.dtype.kind != "U" or entry.ndim != 0:
+        raise ModelFileError(path, "'metadata' must be a JSON text entry")
+    try:
+        meta = json.loads(str(entry))
+    except json.JSONDecodeError as exc:
+        raise ModelFileError(path, f"metadata is not valid JSON ({exc})") from None
+    if not isinstance(meta, dict) or meta.get("format") != FORMAT_NAME:
+        raise ModelFileError(path, f"not an {FORMAT_NAME} file")
+    version = meta.get("format_version")
+    if not isinstance(version, int):
+        raise ModelFileError(path, "metadata has no integer 'format_version'")
+    if version > FORMAT_VERSION:
+        raise ModelFileError(
+            path, f"format version {version} is newer than this program reads ({FORMAT_VERSION})"
+        )
+    if list(meta.get("classes", [])) != list(CLASSES):
+        raise ModelFileError(path, f"unexpected classes {meta.get('classes')!r}")
+    if meta.get("input_shape") != [CELL_SIZE, CELL_SIZE]:
+        raise ModelFileError(path, f"unexpected input shape {meta.get('input_shape')!r}")
+    return meta
+
+
+def _read_members(
+    path: Path, arrays: dict[str, np.ndarray], meta: dict[str, Any]
+) -> list[list[tuple[np.ndarray, np.ndarray]]]:
+    layout = meta.get("ensemble")
+    if not isinstance(layout, list) or not layout:
+        raise ModelFileError(path, "metadata has no ensemble layout")
+    members = []
+    for i, shapes in enumerate(layout):
+        expected_in = CELL_SIZE * CELL_SIZE
+        layers = []
+        for j, shape in enumerate(shapes):
+            if not (isinstance(shape, list) and len(shape) == 2 and shape[0] == expected_in):
+                raise ModelFileError(path, f"inconsistent layout for member {i} layer {j}: {shape!r}")
+            w_name, b_name = f"m{i}_W{j}", f"m{i}_b{j}"
+            for name, want in ((w_name, tuple(shape)), (b_name, (shape[1],))):
+                if name not in arrays:
+                    raise ModelFileError(path, f"missing array {name!r}")
+                arr = arrays[name]
+                if arr.shape != want:
+                    raise ModelFileError(path, f"wrong shape {arr.shape} for {name!r}, expected {want}")
+                if arr.dtype.kind != "f":
+                    raise ModelFileError(path, f"array {name!r} has dtype {arr.dtype}, expected float")
+            layers.append((arrays[w_name], arrays[b_name]))
+            expected_in = shape[1]
+        if expected_in != len(CLASSES):
+            raise ModelFileError(path, f"member {i} ends with {expected_in} outputs, expected {len(CLASSES)}")
+        members.append(layers)
+    extra = set(arrays) - set(_CURVE_ARRAYS) - set(_DIGIT_ARRAYS) - {
+        f"m{i}_{k}{j}" for i, s in enumerate(layout) for j in range(len(s)) for k in "Wb"
+    }
+    if extra:
+        raise ModelFileError(path, f"unexpected arrays {sorted(extra)!r}")
+    return members

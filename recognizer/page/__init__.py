@@ -1,0 +1,1 @@
+"""One page: finding the digit boxes and cutting and cleaning each box."""

@@ -1,0 +1,1 @@
+"""Reading: one page to field values, many pages in a stream, the values CSV."""

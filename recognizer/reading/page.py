@@ -1,0 +1,228 @@
+"""Reading a page: boxes -> cells -> digits -> field values.
+
+This is the stage that joins the others: :func:`read_page` finds the digit
+boxes on one page (:mod:`recognizer.page.boxes`), cuts and cleans every cell
+(:mod:`recognizer.page.cells`), reads all the written cells of the page in one
+batched call to the digit model (:mod:`recognizer.digits.model`) and puts each field's
+value together.
+
+Field values
+------------
+A field's value is its written digits read left to right. Empty boxes before
+the first written digit are skipped, so ``42`` written in the last two boxes of
+a five-box field reads ``42``; empty boxes after the last digit are skipped
+too. A field with no written box has the empty value ``""``. An empty box
+*between* written digits is a gap: the value joins the digits on either side
+and the field is marked ``gap`` so a person looks at it. A mark the model
+calls "not a digit" stands in the value as ``?``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from recognizer.page.boxes import Box, BoxFinding, find_fields
+from recognizer.page.cells import Cell, cut_cells
+from recognizer.digits.model import CLASSES, NOT_A_DIGIT, DigitModel
+from recognizer.forms.registration import Registrar, match_templates
+from recognizer.scans.files import Page
+from recognizer.forms.template import Template, check_page
+
+__all__ = ["UNREADABLE_MARK", "DigitRead", "FieldRead", "PageRead", "PageReader", "field_value"]
+
+#: Character standing for a mark the model calls "not a digit".
+UNREADABLE_MARK = "?"
+
+
+@dataclass
+class DigitRead:
+    """One box of a field, as read.
+
+    ``probs`` holds the model's probabilities for the classes in
+    :data:`recognizer.digits.model.CLASSES` (ten digits, then "not a digit");
+    ``confidence`` is the probability of the class read. Both are ``None``
+    and ``0.0`` for an empty box, whose ``text`` is ``""``.
+    """
+
+    box: int
+    blank: bool
+    text: str
+    confidence: float
+    probs: np.ndarray | None
+    crop: np.ndarray
+
+    @property
+    def not_a_digit(self) -> bool:
+        return self.text == UNREADABLE_MARK
+
+
+@dataclass
+class FieldRead:
+    """One comb field: its boxes, the digit in each, and the value.
+
+    ``doubts`` are reasons found while finding the boxes to distrust this
+    field's boxes (see :class:`recognizer.page.boxes.FieldBoxes`). A page read
+    with a template gives each field its ``typed`` value (see
+    :func:`recognizer.forms.template.typed_value`) and the ``rule_problems`` its
+    value has, each ``"<rule>: <what>"``; both are None / empty otherwise.
+    """
+
+    name: str
+    boxes: tuple[Box, ...]
+    digits: list[DigitRead]
+    value: str
+    gap: bool
+    doubts: tuple[str, ...] = ()
+    typed: str | None = None
+    rule_problems: list[str] = field(default_factory=list)
+
+    @property
+    def written(self) -> list[DigitRead]:
+        return [d for d in self.digits if not d.blank]
+
+    def doubtful_digits(self, threshold: float) -> list[DigitRead]:
+        """Written boxes read below ``threshold`` or as "not a digit"."""
+        return [d for d in self.written if d.not_a_digit or d.confidence < threshold]
+
+    def to_check(self, threshold: float) -> bool:
+        """Whether a person should look at this field."""
+        return (self.gap or bool(self.doubts) or bool(self.rule_problems)
+                or bool(self.doubtful_digits(threshold)))
+
+    @property
+    def output(self) -> str:
+        """The value for the CSV: the typed value when read with a template, else the digits."""
+        return self.value if self.typed is None else self.typed
+
+
+@dataclass
+class PageRead:
+    """Everything read off one page.
+
+    ``problem`` is set (and ``fields`` empty) when no digit boxes could be
+    found; ``warnings`` list doubtful things met while finding the boxes, in
+    which case every field of the page should be checked. A page read with
+    templates records the ``template`` that read it (its name and version,
+    ``orchard_card v1``) and the ``registration_score``; a page that fits
+    none of them has the problem set and ``template`` None.
+    """
+
+    source: Path
+    page: int
+    dpi: float
+    skew_deg: float
+    fields: list[FieldRead]
+    problem: str | None = None
+    warnings: list[str] = field(default_factory=list)
+    image: np.ndarray | None = None
+    template: str | None = None
+    registration_score: float | None = None
+
+    def __bool__(self) -> bool:
+        return self.problem is None
+
+    def digits(self) -> list[DigitRead]:
+        return [d for f in self.fields for d in f.written]
+
+
+def field_value(texts: list[str]) -> tuple[str, bool]:
+    """Join per-box texts into a field value; return ``(value, gap)``.
+
+    >>> field_value(["", "", "", "4", "2"])
+    ('42', False)
+    >>> field_value(["1", "", "3"])
+    ('13', True)
+    >>> field_value(["", ""])
+    ('', False)
+    """
+    written = [i for i, t in enumerate(texts) if t]
+    if not written:
+        return "", False
+    inner = texts[written[0] : written[-1] + 1]
+    return "".join(inner), any(not t for t in inner)
+
+
+class PageReader:
+    """Reads pages with one digit model.
+
+    Parameters
+    ----------
+    model : DigitModel
+        The digit model used for every page.
+    keep_image : bool
+        Keep the deskewed page image on each :class:`PageRead` (the batch
+        store and the window need it; a plain CSV run does not).
+    templates : sequence of Template
+        Form templates: each page is registered to the one it fits best and
+        read at that template's boxes (the page image kept is then the page
+        aligned to the template's reference). Without templates the boxes
+        are found on each page.
+    """
+
+    def __init__(self, model: DigitModel, *, keep_image: bool = False,
+                 templates: Sequence[Template] = ()):
+        self.model = model
+        self.keep_image = keep_image
+        self.registrars = [Registrar(t) for t in templates]
+
+    def read(self, page: Page) -> PageRead:
+        """Read one page; never raises on odd page content."""
+        if self.registrars:
+            return self._read_with_template(page)
+        finding = find_fields(page.image, dpi=page.dpi)
+        return self.read_finding(finding, source=page.source, page=page.page)
+
+    def _read_with_template(self, page: Page) -> PageRead:
+        match = match_templates(page.image, dpi=page.dpi, registrars=self.registrars)
+        score = match.registration.score
+        if not match:
+            return PageRead(page.source, page.page, page.dpi, match.registration.rotation_deg, [],
+                            problem=match.problem, registration_score=score)
+        assert match.template is not None and match.finding is not None
+        read = self.read_finding(match.finding, source=page.source, page=page.page)
+        read.template, read.registration_score = match.template.label, score
+        values = check_page(match.template, {f.name: [d.text for d in f.digits] for f in read.fields})
+        for f in read.fields:
+            f.typed, f.rule_problems = values[f.name].text, values[f.name].problems
+        return read
+
+    def read_finding(self, finding: BoxFinding, *, source: Path, page: int) -> PageRead:
+        """Read the fields of a page whose boxes have been found."""
+        image = finding.image if self.keep_image else None
+        if not finding:
+            return PageRead(
+                source, page, finding.dpi, finding.skew_deg, [],
+                problem=finding.problem, warnings=list(finding.warnings), image=image,
+            )
+        per_field: list[list[Cell]] = [
+            cut_cells(finding.image, f.boxes, dpi=finding.dpi) for f in finding.fields
+        ]
+        written = [c.mnist for cells in per_field for c in cells if not c.blank]
+        probs = (
+            self.model.predict_proba(np.stack(written))
+            if written
+            else np.zeros((0, len(CLASSES)))
+        )
+        fields: list[FieldRead] = []
+        k = 0
+        for boxes, cells in zip(finding.fields, per_field):
+            digits: list[DigitRead] = []
+            for i, cell in enumerate(cells):
+                if cell.blank:
+                    digits.append(DigitRead(i, True, "", 0.0, None, cell.crop))
+                    continue
+                p = probs[k]
+                k += 1
+                best = int(np.argmax(p))
+                text = UNREADABLE_MARK if best == NOT_A_DIGIT else CLASSES[best]
+                digits.append(DigitRead(i, False, text, float(p[best]), p, cell.crop))
+            value, gap = field_value([d.text for d in digits])
+            fields.append(FieldRead(boxes.name, tuple(boxes.boxes), digits, value, gap, tuple(boxes.doubts)))
+        return PageRead(
+            source, page, finding.dpi, finding.skew_deg, fields,
+            warnings=list(finding.warnings), image=image,
+        )

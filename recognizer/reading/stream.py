@@ -1,0 +1,217 @@
+"""Reading many scans: pages streamed through a :class:`~recognizer.reading.page.PageReader`,
+in this process or in a pool of worker processes.
+
+:func:`read_scans` is what the command line, the batch store and the window
+all use. It yields one result per page, in the order of the input files and
+their pages: a :class:`~recognizer.reading.page.PageRead`, or a
+:class:`~recognizer.scans.files.ScanProblem` for a file or page that could not be
+read. It never holds more than a few pages at a time: with ``workers=1``
+pages are decoded and read one after the other; with more workers each
+process loads its own pages by (file, page number) and at most two pages per
+worker are in flight.
+"""
+
+from __future__ import annotations
+
+import os
+import threading
+from collections import deque
+from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import Future, ProcessPoolExecutor
+from dataclasses import dataclass
+from queue import Empty, Full, Queue
+from pathlib import Path
+
+from recognizer.digits.model import DigitModel, load_model
+from recognizer.reading.page import PageRead, PageReader
+from recognizer.scans.files import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, Page, ScanProblem, count_pages, iter_pages, load_page
+from recognizer.forms.template import load_template
+
+__all__ = ["ReadSettings", "read_scans", "PageJob", "page_jobs"]
+
+
+@dataclass(frozen=True)
+class ReadSettings:
+    """How pages are loaded and read (plain values, so it can go to a worker).
+
+    ``template_paths`` are form template files (:mod:`recognizer.forms.template`);
+    with any, every page is read with the template it fits best.
+    """
+
+    model_path: str | None = None
+    pdf_dpi: float = DEFAULT_PDF_DPI
+    max_pixels: int = DEFAULT_MAX_PIXELS
+    keep_image: bool = False
+    template_paths: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class PageJob:
+    """One page to read: a file and a page number from 1."""
+
+    source: Path
+    page: int
+
+
+def page_jobs(
+    files: Iterable[str | os.PathLike],
+    *,
+    max_pixels: int = DEFAULT_MAX_PIXELS,
+    skip: Callable[[Path, int], bool] | None = None,
+) -> Iterator[PageJob | ScanProblem]:
+    """List the pages of ``files`` without decoding them.
+
+    ``skip(path, page)`` may leave out pages already read (the batch store
+    uses it when a batch is extended).
+    """
+    for raw in files:
+        path = Path(raw)
+        n = count_pages(path, max_pixels=max_pixels)
+        if isinstance(n, ScanProblem):
+            yield n
+            continue
+        for number in range(1, n + 1):
+            if skip is None or not skip(path, number):
+                yield PageJob(path, number)
+
+
+def read_scans(
+    files: Iterable[str | os.PathLike],
+    *,
+    settings: ReadSettings = ReadSettings(),
+    workers: int = 1,
+    model: DigitModel | None = None,
+    skip: Callable[[Path, int], bool] | None = None,
+) -> Iterator[PageRead | ScanProblem]:
+    """Read every page of ``files``; yield results in input order.
+
+    Parameters
+    ----------
+    files : iterable of paths
+        Scan files (see :func:`recognizer.scans.files.list_scans` for folders).
+    settings : ReadSettings
+        Model file, PDF resolution, pixel limit, whether to keep page images.
+    workers : int
+        1 reads in this process; more starts that many worker processes.
+    model : DigitModel, optional
+        An already loaded model for ``workers=1`` (otherwise loaded from
+        ``settings.model_path``; workers always load their own).
+    skip : callable, optional
+        ``skip(path, page) -> bool`` leaves out pages already read.
+    """
+    if workers < 1:
+        raise ValueError(f"workers must be at least 1, got {workers}")
+    if workers == 1:
+        reader = _reader(model or load_model(settings.model_path), settings)
+        if skip is None:
+            pages = iter_pages(files, pdf_dpi=settings.pdf_dpi, max_pixels=settings.max_pixels)
+        else:
+            pages = (
+                job if isinstance(job, ScanProblem)
+                else load_page(job.source, job.page, pdf_dpi=settings.pdf_dpi, max_pixels=settings.max_pixels)
+                for job in page_jobs(files, max_pixels=settings.max_pixels, skip=skip)
+            )
+        for item in _decoded_ahead(pages):
+            yield item if isinstance(item, ScanProblem) else reader.read(item)
+        return
+    yield from _read_in_pool(files, settings, workers, skip)
+
+
+def _decoded_ahead(pages: Iterator[Page | ScanProblem], depth: int = 1) -> Iterator[Page | ScanProblem]:
+    """Yield from ``pages`` while a thread decodes the next ``depth`` pages.
+
+    Decoding (Pillow, pypdfium2) and reading (OpenCV, numpy) both release the
+    interpreter lock for most of their work, so on two cores the next page is
+    decoded while this one is read. At most ``depth + 1`` pages are held. An
+    exception met while decoding is raised here, in the caller's thread; when
+    the caller stops early the thread stops too.
+    """
+    done = object()
+    queue: Queue = Queue(maxsize=depth)
+    stop = threading.Event()
+
+    def produce() -> None:
+        try:
+            for item in pages:
+                while not stop.is_set():
+                    try:
+                        queue.put((item, None), timeout=0.1)
+                        break
+                    except Full:
+                        continue
+                if stop.is_set():
+                    return
+            queue.put((done, None))
+        except BaseException as exc:  # handed to the consumer
+            queue.put((done, exc))
+
+    thread = threading.Thread(target=produce, name="inkcount-decode", daemon=True)
+    thread.start()
+    try:
+        while True:
+            item, error = queue.get()
+            if item is done:
+                if error is not None:
+                    raise error
+                return
+            yield item
+    finally:
+        stop.set()
+        while thread.is_alive():
+            try:
+                queue.get_nowait()
+            except Empty:
+                thread.join(timeout=0.05)
+        if hasattr(pages, "close"):
+            pages.close()
+
+
+def _reader(model: DigitModel, settings: ReadSettings) -> PageReader:
+    templates = [load_template(p) for p in settings.template_paths]
+    return PageReader(model, keep_image=settings.keep_image, templates=templates)
+
+
+def _read_job(reader: PageReader, job: PageJob, settings: ReadSettings) -> PageRead | ScanProblem:
+    page = load_page(job.source, job.page, pdf_dpi=settings.pdf_dpi, max_pixels=settings.max_pixels)
+    return page if isinstance(page, ScanProblem) else reader.read(page)
+
+
+# Worker processes: one reader per process, built once.
+_worker_reader: PageReader | None = None
+_worker_settings: ReadSettings | None = None
+
+
+def _init_worker(settings: ReadSettings) -> None:
+    global _worker_reader, _worker_settings
+    _worker_settings = settings
+    _worker_reader = _reader(load_model(settings.model_path), settings)
+
+
+def _worker_read(job: PageJob) -> PageRead | ScanProblem:
+    assert _worker_reader is not None and _worker_settings is not None
+    return _read_job(_worker_reader, job, _worker_settings)
+
+
+def _read_in_pool(files, settings: ReadSettings, workers: int, skip) -> Iterator[PageRead | ScanProblem]:
+    # Load the model and templates once here first so that a bad file is one
+    # clear error, not one per worker.
+    load_model(settings.model_path)
+    for path in settings.template_paths:
+        load_template(path)
+    pending: deque[Future | ScanProblem] = deque()
+    with ProcessPoolExecutor(max_workers=workers, initializer=_init_worker, initargs=(settings,)) as pool:
+        try:
+            for job in page_jobs(files, max_pixels=settings.max_pixels, skip=skip):
+                pending.append(job if isinstance(job, ScanProblem) else pool.submit(_worker_read, job))
+                while len(pending) > 2 * workers:
+                    yield _result(pending.popleft())
+            while pending:
+                yield _result(pending.popleft())
+        finally:
+            for item in pending:
+                if isinstance(item, Future):
+                    item.cancel()
+
+
+def _result(item: Future | ScanProblem) -> PageRead | ScanProblem:
+    return item if isinstance(item, ScanProblem) else item.result()

@@ -1,0 +1,141 @@
+"""CSV export: the values table (one row per page) and the digits table (one row per digit).
+
+Both files are RFC 4180 CSV (comma-separated, double-quote quoting, CRLF line
+ends) in UTF-8. Every value is written as text, so a grower number ``00412``
+keeps its leading zeros.
+
+Values table columns: ``file, page,`` one column per field (``f01, f02, ...``
+— every field seen on any page, so pages with fewer fields leave the extra
+columns empty), then ``to_check`` (the fields of the row a person should look
+at, separated by spaces) and ``problem`` (why a file or page could not be
+read; such rows have no values).
+
+Pages read with a form template (:mod:`recognizer.forms.template`) carry the
+template's field names and typed values (``18.7``, ``2026-09-13``; fields in
+the template's order), and the table gains two columns: ``template`` after
+``page`` (the template's name and version that read the page, ``orchard_card
+v1``) and ``rule_problems`` before ``problem`` (the rules a value breaks, as
+``field: rule: what``, separated by `` | ``).
+
+Digits table columns: ``file, page, field, box`` (box numbered from 1, left to
+right), ``digit`` (``?`` for a mark read as "not a digit"), ``confidence``,
+``p0`` … ``p9`` (the probability of each digit) and ``p_not_digit``. Empty
+boxes have no row.
+"""
+
+from __future__ import annotations
+
+import csv
+import os
+from pathlib import Path
+from typing import TextIO
+
+from recognizer.reading.page import PageRead
+from recognizer.scans.files import ScanProblem
+
+__all__ = ["ValuesTable", "DigitsWriter", "field_sort_key", "open_csv", "csv_writer"]
+
+
+def open_csv(path: str | os.PathLike) -> TextIO:
+    """Open ``path`` for writing CSV the way RFC 4180 wants it."""
+    return open(path, "w", newline="", encoding="utf-8")
+
+
+def csv_writer(fh: TextIO):
+    """A CSV writer for ``fh`` (from :func:`open_csv`): RFC 4180, CRLF line ends."""
+    return csv.writer(fh, lineterminator="\r\n", quoting=csv.QUOTE_MINIMAL)
+
+
+def field_sort_key(name: str) -> tuple[int, str]:
+    """Sort ``f2`` before ``f10`` and named fields after numbered ones."""
+    digits = name[1:] if name[:1] == "f" else ""
+    return (int(digits), "") if digits.isdigit() else (10**9, name)
+
+
+class ValuesTable:
+    """Collects one row per page and writes the values CSV at the end.
+
+    The rows are kept (they are short strings) because the header needs
+    every field name of every page before the first row is written.
+    """
+
+    def __init__(self) -> None:
+        self.rows: list[tuple[str, str, dict[str, str], list[str], str, str, str]] = []
+        self.fields: dict[str, int] = {}  # name -> order first seen
+        self.templated = False
+
+    def add_page(self, page: PageRead, *, threshold: float) -> None:
+        self.templated |= page.template is not None
+        if not page:
+            self.rows.append((str(page.source), str(page.page), {}, [], page.problem or "", "", ""))
+            return
+        values = {f.name: f.output for f in page.fields}
+        for name in values:
+            self.fields.setdefault(name, len(self.fields))
+        check = [f.name for f in page.fields if page.warnings or f.to_check(threshold)]
+        rules = " | ".join(f"{f.name}: {p}" for f in page.fields for p in f.rule_problems)
+        self.rows.append((str(page.source), str(page.page), values, check, "", page.template or "", rules))
+
+    def add_problem(self, problem: ScanProblem) -> None:
+        page = "" if problem.page is None else str(problem.page)
+        self.rows.append((str(problem.source), page, {}, [], problem.reason, "", ""))
+
+    def _names(self) -> list[str]:
+        return sorted(self.fields, key=lambda n: (field_sort_key(n)[0], self.fields[n]))
+
+    def header(self) -> list[str]:
+        if self.templated:
+            return ["file", "page", "template", *self._names(), "to_check", "rule_problems", "problem"]
+        return ["file", "page", *self._names(), "to_check", "problem"]
+
+    def write(self, path: str | os.PathLike) -> None:
+        names = self._names()
+        with open_csv(path) as fh:
+            w = csv_writer(fh)
+            w.writerow(self.header())
+            for file, page, values, check, problem, template, rules in self.rows:
+                cells = [values.get(n, "") for n in names]
+                if self.templated:
+                    w.writerow([file, page, template, *cells, " ".join(check), rules, problem])
+                else:
+                    w.writerow([file, page, *cells, " ".join(check), problem])
+
+
+DIGIT_COLUMNS = (
+    ["file", "page", "field", "box", "digit", "confidence"]
+    + [f"p{d}" for d in range(10)]
+    + ["p_not_digit"]
+)
+
+
+class DigitsWriter:
+    """Streams one row per written digit to a CSV file.
+
+    Use as a context manager::
+
+        with DigitsWriter(path) as out:
+            out.add_page(page_read)
+    """
+
+    def __init__(self, path: str | os.PathLike):
+        self.path = Path(path)
+        self._fh: TextIO | None = None
+
+    def __enter__(self) -> DigitsWriter:
+        self._fh = open_csv(self.path)
+        self._w = csv_writer(self._fh)
+        self._w.writerow(DIGIT_COLUMNS)
+        return self
+
+    def __exit__(self, *exc) -> None:
+        assert self._fh is not None
+        self._fh.close()
+
+    def add_page(self, page: PageRead) -> None:
+        for f in page.fields:
+            for d in f.written:
+                assert d.probs is not None
+                self._w.writerow(
+                    [str(page.source), page.page, f.name, d.box + 1, d.text, f"{d.confidence:.4f}"]
+                    + [f"{p:.4f}" for p in d.probs]
+                )

@@ -1,0 +1,472 @@
+"""The batch file: creation, refusing foreign or damaged files, migrations, the writer
+lock, storing pages, ingest (deduplication, resume, cancel) and surviving ``kill -9``.
+
+The stand-in model, hand-made pages and stand-in reader are in
+:mod:`tests.support.batches`.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import signal
+import sqlite3
+import subprocess
+import sys
+import textwrap
+import threading
+import time
+from dataclasses import replace
+from pathlib import Path
+
+import cv2
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose, assert_array_equal
+
+import recognizer.batch.store as batch_module
+from tests.support.batches import (
+    CARD, DPI, FakeModel, add_page, digit_ids, fake_reader, field_id, field_row, make_page, new_batch, one_hot,
+    scan_files,
+)
+from recognizer.batch.store import (
+    APPLICATION_ID,
+    SCHEMA_VERSION,
+    Batch,
+    BatchFileError,
+    BatchInUseError,
+    decode_png,
+    ingest_scans,
+    labelled_samples,
+)
+from recognizer.page.boxes import Box
+from recognizer.page.cells import cut_cell
+from recognizer.digits.model import CLASSES, NOT_A_DIGIT
+from recognizer.reading.page import UNREADABLE_MARK, DigitRead, FieldRead, PageRead, field_value
+from recognizer.review.actions import CONFIRMED, CORRECTED, READ, TO_CHECK, confirm, set_digit, set_field, set_threshold
+from recognizer.scans.files import ScanProblem
+from tests.support import REPO
+
+
+
+# --------------------------------------------------------------------------- creating and opening
+
+
+def test_create_writes_an_identified_wal_file(tmp_path):
+    path = tmp_path / "harvest.inkcount"
+    with Batch.create(path) as batch:
+        assert not batch.read_only
+        assert batch.rows("PRAGMA journal_mode")[0][0] == "wal"
+    conn = sqlite3.connect(path)
+    assert conn.execute("PRAGMA application_id").fetchone()[0] == APPLICATION_ID
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
+    meta = dict(conn.execute("SELECT key, value FROM inkcount_meta"))
+    assert meta["format"] == "inkcount-batch"
+    conn.close()
+    assert not Path(f"{path}.lock").exists()
+    with Batch.open(path) as batch:
+        assert batch.settings.threshold is None
+
+
+def test_create_refuses_an_existing_file(tmp_path):
+    path = tmp_path / "b.inkcount"
+    path.write_text("keep me")
+    with pytest.raises(BatchFileError, match="already exists"):
+        Batch.create(path)
+    assert path.read_text() == "keep me"
+
+
+def test_open_with_create_makes_a_new_batch_once(tmp_path):
+    path = tmp_path / "b.inkcount"
+    with Batch.open(path, create=True) as batch:
+        add_page(batch, "a.png")
+    with Batch.open(path, create=True) as batch:
+        assert len(batch.rows("SELECT * FROM pages")) == 1
+
+
+def _foreign_sqlite(path: Path) -> None:
+    conn = sqlite3.connect(path)
+    conn.execute("CREATE TABLE t (x)")
+    conn.commit()
+    conn.close()
+
+
+def _newer(path: Path) -> None:
+    Batch.create(path).close()
+    conn = sqlite3.connect(path)
+    conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION + 1}")
+    conn.close()
+
+
+def _damaged(path: Path) -> None:
+    with Batch.create(path) as batch:
+        add_page(batch, "a.png")
+    data = bytearray(path.read_bytes())
+    data[100:] = bytes(len(data) - 100)  # keep the 100-byte header, wipe every page
+    path.write_bytes(bytes(data))
+
+
+@pytest.mark.parametrize(
+    "make, message",
+    [
+        (lambda p: None, "no such file"),
+        (lambda p: p.write_bytes(b""), "not an SQLite database"),
+        (lambda p: p.write_text("grower,crates\n00412,12\n"), "not an SQLite database"),
+        (_foreign_sqlite, "not an Inkcount batch file"),
+        (_newer, "newer Inkcount"),
+        (_damaged, "damaged"),
+    ],
+    ids=["missing", "empty", "text", "foreign sqlite", "newer", "damaged"],
+)
+def test_open_refuses_unusable_files_clearly(tmp_path, make, message):
+    path = tmp_path / "b.inkcount"
+    make(path)
+    with pytest.raises(BatchFileError, match=message):
+        Batch.open(path)
+    # the refusal releases the writer lock again
+    assert not Path(f"{path}.lock").exists()
+
+
+def test_migrations_run_in_order_and_a_failed_step_leaves_the_file_alone(tmp_path, monkeypatch):
+    path = tmp_path / "b.inkcount"
+    with Batch.create(path) as batch:
+        add_page(batch, "a.png")
+
+    def broken(conn):
+        conn.execute("ALTER TABLE pages ADD COLUMN note TEXT")
+        raise RuntimeError("step failed")
+
+    monkeypatch.setattr(batch_module, "MIGRATIONS", [*batch_module.MIGRATIONS, broken])
+    monkeypatch.setattr(batch_module, "SCHEMA_VERSION", SCHEMA_VERSION + 1)
+    with pytest.raises(BatchFileError, match="unchanged"):
+        Batch.open(path)
+    with sqlite3.connect(path) as conn:
+        assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
+        assert "note" not in [r[1] for r in conn.execute("PRAGMA table_info(pages)")]
+
+    def add_note(conn):
+        conn.execute("ALTER TABLE pages ADD COLUMN note TEXT DEFAULT 'migrated'")
+
+    monkeypatch.setattr(batch_module, "MIGRATIONS", [*batch_module.MIGRATIONS[:-1], add_note])
+    with pytest.raises(BatchFileError, match="needs upgrading"):
+        Batch.open(path, read_only=True)
+    with Batch.open(path) as batch:
+        assert batch.rows("PRAGMA user_version")[0][0] == SCHEMA_VERSION + 1
+        assert [r["note"] for r in batch.rows("SELECT note FROM pages")] == ["migrated"]
+        assert len(batch.rows("SELECT * FROM digits")) == 8
+
+
+# --------------------------------------------------------------------------- one writer at a time
+
+
+def test_a_second_writer_in_the_same_process_is_refused(tmp_path):
+    path = tmp_path / "b.inkcount"
+    with Batch.create(path):
+        with pytest.raises(BatchInUseError, match="in use by another Inkcount window or command"):
+            Batch.open(path)
+        with Batch.open(path, read_only=True) as reader:
+            assert reader.read_only
+            with pytest.raises(PermissionError):
+                with reader.transaction():
+                    pass
+    Batch.open(path).close()
+
+
+def _child(code: str, *args: str) -> subprocess.Popen:
+    """A Python child process running ``code`` with the repository importable."""
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(REPO), os.environ.get("PYTHONPATH", "")]))
+    return subprocess.Popen([sys.executable, "-c", textwrap.dedent(code), *args], cwd=REPO, env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+
+
+def test_two_processes_lock_and_the_lock_dies_with_its_holder(tmp_path):
+    path = tmp_path / "b.inkcount"
+    with new_batch(path) as batch:
+        add_page(batch, "a.png")
+    holder = _child(
+        """
+        import sys, time
+        from recognizer.batch.store import Batch
+        batch = Batch.open(sys.argv[1])
+        print("open", flush=True)
+        time.sleep(60)
+        """,
+        str(path),
+    )
+    try:
+        assert holder.stdout.readline().strip() == "open"
+        with pytest.raises(BatchInUseError, match=rf"in use by another Inkcount window or command \(process {holder.pid} "):
+            Batch.open(path)
+        with Batch.open(path, read_only=True) as reader:  # reading goes on meanwhile
+            assert len(reader.rows("SELECT * FROM fields")) == 3
+    finally:
+        holder.send_signal(signal.SIGKILL)
+        holder.wait()
+    assert Path(f"{path}.lock").exists()  # left behind by the killed holder...
+    with Batch.open(path) as batch:  # ...but it holds nobody off
+        assert batch.integrity_check() == []
+
+
+# --------------------------------------------------------------------------- storing pages
+
+
+def test_a_page_is_stored_with_images_probabilities_and_states(tmp_path):
+    with new_batch(tmp_path / "b.inkcount") as batch:
+        page = make_page("cards/a.png", 1, CARD, warnings=())
+        file_id = batch.add_file("cards/a.png", "x", 10)
+        page_id = batch.add_result(file_id, page, model_version="fake-1")
+        assert_array_equal(batch.page_image(page_id), page.image)
+        stored = batch.rows("SELECT id, box, blank, prediction, confidence, model_version, state FROM digits "
+                            "ORDER BY id")
+        read = [d for f in page.fields for d in f.digits]
+        assert len(stored) == len(read) == 8
+        for row, d in zip(stored, read):
+            assert_array_equal(batch.digit_crop(row["id"]), d.crop)
+            assert (row["box"], bool(row["blank"]), row["prediction"]) == (d.box, d.blank, d.text)
+            if d.blank:
+                assert batch.digit_probs(row["id"]) is None and row["model_version"] is None
+            else:
+                assert_allclose(batch.digit_probs(row["id"]), d.probs, rtol=1e-6)
+                assert row["model_version"] == "fake-1"
+            expected = TO_CHECK if not d.blank and d.confidence < 0.9 else READ
+            assert row["state"] == expected
+        fields = batch.rows("SELECT name, boxes, read_value, value, gap, state FROM fields ORDER BY position")
+        assert [(f["name"], f["value"], f["state"]) for f in fields] == [
+            ("f01", "041", READ), ("f02", "17", TO_CHECK), ("f03", "23", READ)]
+        boxes = [Box(*b) for b in json.loads(fields[1]["boxes"])]
+        assert boxes == list(page.fields[1].boxes)
+
+
+def test_problems_are_stored_as_pages_without_fields(tmp_path):
+    with new_batch(tmp_path / "b.inkcount") as batch:
+        file_id = batch.add_file("a.pdf", "x", 10)
+        batch.add_result(file_id, ScanProblem(Path("a.pdf"), 2, "page cannot be drawn"), model_version=None)
+        batch.add_result(file_id, make_page("a.pdf", 3, {}, problem="no digit boxes found"), model_version=None)
+        rows = batch.rows("SELECT id, page, problem FROM pages ORDER BY page")
+        assert [(r["page"], r["problem"]) for r in rows] == [(2, "page cannot be drawn"), (3, "no digit boxes found")]
+        assert batch.rows("SELECT COUNT(*) FROM fields")[0][0] == 0
+        assert batch.page_image(rows[0]["id"]) is None and batch.page_image(rows[1]["id"]).shape == (100, 100)
+
+
+def test_png_round_trip_is_lossless():
+    image = np.random.default_rng(3).integers(0, 256, (37, 53)).astype(np.uint8)
+    assert_array_equal(decode_png(batch_module.encode_png(image)), image)
+
+
+def test_observers_hear_of_committed_pages(tmp_path):
+    heard = []
+    with new_batch(tmp_path / "b.inkcount") as batch:
+        batch.subscribe(heard.append)
+        page_id = add_page(batch, "a.png")
+        batch.unsubscribe(heard.append)
+        add_page(batch, "b.png")
+    assert [(c.kind, c.page_ids) for c in heard] == [("page", (page_id,))]
+
+
+# --------------------------------------------------------------------------- ingest
+
+
+def test_ingest_reads_new_files_once_even_under_another_name(tmp_path, monkeypatch):
+    monkeypatch.setattr(batch_module, "read_scans", fake_reader(2))
+    scans = scan_files(tmp_path / "scans", ["a.png", "b.png"])
+    copy = tmp_path / "elsewhere" / "a-copy.png"
+    copy.parent.mkdir()
+    shutil.copy(scans[0], copy)
+    seen = []
+    with Batch.create(tmp_path / "b.inkcount") as batch:
+        first = ingest_scans(batch, scans, model=FakeModel(), on_result=seen.append)
+        assert (first.files_added, first.pages_read, first.fields, first.digits) == (2, 4, 12, 28)
+        assert first.fields_to_check == 4 and first.digits_to_check == 4
+        assert [(r.source.name, r.page) for r in seen] == [("a.png", 1), ("a.png", 2), ("b.png", 1), ("b.png", 2)]
+        settings = batch.settings
+        assert (settings.threshold, settings.threshold_source, settings.model_version) == (0.9, "target", "fake-1")
+        again = ingest_scans(batch, [copy, scans[1], copy], model=FakeModel())
+        assert again.files_added == 0 and again.pages_read == 0
+        assert again.known == [(str(copy), str(scans[0])), (str(scans[1]), str(scans[1])), (str(copy), str(scans[0]))]
+        assert batch.rows("SELECT COUNT(*) FROM pages")[0][0] == 4
+
+
+def test_ingest_stops_when_asked_and_resumes_where_it_stopped(tmp_path, monkeypatch):
+    monkeypatch.setattr(batch_module, "read_scans", fake_reader(3))
+    scans = scan_files(tmp_path / "scans", ["a.tif", "b.tif"])
+    seen = []
+    with Batch.create(tmp_path / "b.inkcount") as batch:
+        first = ingest_scans(batch, scans, model=FakeModel(), on_result=seen.append,
+                             should_stop=lambda: len(seen) == 4)
+        assert first.stopped and first.pages_read == 4
+        assert [r["complete"] for r in batch.rows("SELECT complete FROM files ORDER BY id")] == [1, 0]
+        second = ingest_scans(batch, scans, model=FakeModel(), on_result=seen.append)
+        assert not second.stopped and second.files_added == 0 and second.pages_read == 2
+        assert [(r.source.name, r.page) for r in seen[4:]] == [("b.tif", 2), ("b.tif", 3)]
+        pages = batch.rows("SELECT fl.path, p.page FROM pages p JOIN files fl ON fl.id = p.file_id ORDER BY p.id")
+        assert [(Path(r[0]).name, r[1]) for r in pages] == [("a.tif", 1), ("a.tif", 2), ("a.tif", 3),
+                                                            ("b.tif", 1), ("b.tif", 2), ("b.tif", 3)]
+        assert [r["complete"] for r in batch.rows("SELECT complete FROM files")] == [1, 1]
+
+
+def test_ingest_stores_problems_of_listing_hashing_and_reading(tmp_path, monkeypatch):
+    monkeypatch.setattr(batch_module, "read_scans", fake_reader(1))
+    good, bad = scan_files(tmp_path / "scans", ["a.png", "b.bad"])
+    missing = tmp_path / "scans" / "gone.png"
+    listed = ScanProblem(tmp_path / "notes.txt", None, "not a scan file type")
+    with Batch.create(tmp_path / "b.inkcount") as batch:
+        summary = ingest_scans(batch, [good, bad, missing], model=FakeModel(), problems=[listed])
+        assert summary.pages_read == 1
+        assert [(p.source.name, p.page) for p in summary.problems] == [("notes.txt", None), ("gone.png", None),
+                                                                     ("b.bad", None)]
+        rows = batch.rows("SELECT fl.path, p.page, p.problem FROM pages p JOIN files fl ON fl.id = p.file_id "
+                          "WHERE p.problem IS NOT NULL ORDER BY p.id")
+        assert [Path(r[0]).name for r in rows] == ["notes.txt", "gone.png", "b.bad"]
+        assert "cannot read the file" in rows[1][2]
+        # a file that could not be read is tried again, and its old problem replaced
+        missing.write_bytes(b"now here")
+        again = ingest_scans(batch, [good, bad, missing], model=FakeModel())
+        assert again.pages_read == 1 and again.problems == []
+        assert batch.rows("SELECT COUNT(*) FROM pages WHERE problem LIKE 'cannot read%'")[0][0] == 0
+
+
+def test_ingest_refuses_a_loaded_model_with_worker_processes(tmp_path):
+    with Batch.create(tmp_path / "b.inkcount") as batch:
+        with pytest.raises(ValueError, match="workers=1"):
+            ingest_scans(batch, [], model=FakeModel(), workers=2)
+
+
+# --------------------------------------------------------------------------- labelled samples
+
+
+def test_labelled_samples_are_the_boxes_people_handled(tmp_path):
+    with new_batch(tmp_path / "b.inkcount") as batch:
+        add_page(batch, "a.png")
+        f01, f02, f03 = (field_id(batch, "a.png", 1, n) for n in ("f01", "f02", "f03"))
+        set_field(batch, f02, "47", reviewer="ada")           # box 1 corrected to 4, box 2 confirmed 7
+        set_digit(batch, digit_ids(batch, f01)[0], "", reviewer="ben")  # the "0" is a stray mark
+        set_field(batch, f03, "123", reviewer="ada")           # three digits into two boxes: no labels
+        crops, cells, labels, refs = labelled_samples(batch)
+        assert list(labels) == [NOT_A_DIGIT, 4, 7]
+        assert [(r.field, r.box, r.state, r.reviewer) for r in refs] == [
+            ("f01", 0, CORRECTED, "ben"), ("f02", 1, CORRECTED, "ada"), ("f02", 2, CONFIRMED, "ada")]
+        for crop, ref in zip(crops, refs):
+            assert_array_equal(crop, batch.digit_crop(ref.digit_id))
+        # hand-made crops are the inner box only, not the reader's crop with its margin: no cell
+        assert cells == [None, None, None]
+
+
+def test_labelled_samples_cut_the_cells_again_as_the_reader_does(tmp_path):
+    page = make_page("a.png", 1, CARD)
+    f02 = page.fields[1]  # boxes: empty, "1", "7"
+    stored = [replace(d, crop=cut_cell(page.image, box, dpi=DPI).crop) if d.box != 2 else d
+              for d, box in zip(f02.digits, f02.boxes)]
+    page.fields[1] = replace(f02, digits=stored)
+    with new_batch(tmp_path / "b.inkcount") as batch:
+        batch.add_result(batch.add_file("a.png", "sha-a", 1), page, model_version="fake-1")
+        set_field(batch, field_id(batch, "a.png", 1, "f02"), "17", reviewer="ada")
+        _crops, cells, labels, refs = labelled_samples(batch)
+    assert list(labels) == [1, 7] and [r.box for r in refs] == [1, 2]
+    expected = cut_cell(page.image, f02.boxes[1], dpi=DPI).mnist
+    assert cells[0].shape == (28, 28) and cells[0].dtype == np.float32
+    assert_array_equal(cells[0], expected)
+    assert cells[1] is None  # its stored crop is not the reader's: the box and the page disagree
+
+
+def test_two_threads_share_a_batch_without_seeing_half_a_transaction(tmp_path):
+    with new_batch(tmp_path / "b.inkcount") as batch:
+        stop = threading.Event()
+
+        def write() -> None:
+            while not stop.is_set():
+                with batch.transaction() as conn:
+                    conn.execute("INSERT INTO settings (key, value) VALUES ('half', '1')")
+                    time.sleep(0.0005)
+                    conn.execute("DELETE FROM settings WHERE key = 'half'")
+
+        writer = threading.Thread(target=write)
+        writer.start()
+        try:
+            seen = [batch.rows("SELECT COUNT(*) FROM settings WHERE key = 'half'")[0][0] for _ in range(400)]
+        finally:
+            stop.set()
+            writer.join()
+        assert seen == [0] * 400
+
+
+# --------------------------------------------------------------------------- kill -9
+
+
+def _read_until(proc: subprocess.Popen, n: int) -> list[str]:
+    lines = []
+    while len(lines) < n:
+        line = proc.stdout.readline()
+        if not line:
+            raise AssertionError(f"child ended early: {proc.stderr.read()}")
+        lines.append(line.strip())
+    return lines
+
+
+def test_kill_during_ingest_loses_at_most_the_page_being_read(tmp_path):
+    scans = scan_files(tmp_path / "scans", [f"s{i:02d}.png" for i in range(6)])
+    path = tmp_path / "b.inkcount"
+    code = """
+        import sys
+        import recognizer.batch.store as b
+        from tests.support.batches import FakeModel, fake_reader
+        b.read_scans = fake_reader(10, delay=0.01)
+        batch = b.Batch.open(sys.argv[1], create=True)
+        b.ingest_scans(batch, sys.argv[2:], model=FakeModel(),
+                       on_result=lambda r: print(f"{r.source.name}:{r.page}", flush=True))
+        print("finished", flush=True)
+        """
+    child = _child(code, str(path), *map(str, scans))
+    done = _read_until(child, 17)
+    child.send_signal(signal.SIGKILL)
+    child.wait()
+    assert child.returncode == -signal.SIGKILL and "finished" not in done
+    with Batch.open(path) as batch:
+        assert batch.integrity_check() == []
+        stored = {f"{Path(r[0]).name}:{r[1]}" for r in
+                  batch.rows("SELECT fl.path, p.page FROM pages p JOIN files fl ON fl.id = p.file_id")}
+        assert set(done) <= stored and len(stored) <= len(done) + 1
+        # every stored page is whole: 3 fields, 8 boxes
+        counts = batch.rows("SELECT COUNT(DISTINCT f.id), COUNT(d.id) FROM pages p JOIN fields f ON f.page_id = p.id "
+                            "JOIN digits d ON d.field_id = f.id GROUP BY p.id")
+        assert {tuple(c) for c in counts} == {(3, 8)}
+    # running it again completes the batch, reading only what is missing
+    rerun = _child(code, str(path), *map(str, scans))
+    out, err = rerun.communicate(timeout=60)
+    assert rerun.returncode == 0, err
+    assert len(out.split()) - 1 == 60 - len(stored)
+    with Batch.open(path, read_only=True) as batch:
+        assert batch.rows("SELECT COUNT(*) FROM pages")[0][0] == 60
+
+
+def test_kill_during_review_keeps_every_action_completed(tmp_path):
+    path = tmp_path / "b.inkcount"
+    with new_batch(path) as batch:
+        for number in range(1, 5):
+            add_page(batch, "a.png", number)
+    code = """
+        import sys
+        from recognizer.batch.store import Batch
+        from recognizer.review.actions import set_field
+        batch = Batch.open(sys.argv[1])
+        fields = [r[0] for r in batch.rows("SELECT id FROM fields ORDER BY id")]
+        for i in range(100000):
+            set_field(batch, fields[i % len(fields)], str(i % 1000).zfill(3), reviewer="loop")
+            print(i, flush=True)
+        """
+    child = _child(code, str(path))
+    done = _read_until(child, 150)
+    child.send_signal(signal.SIGKILL)
+    child.wait()
+    last = int(done[-1])
+    with Batch.open(path) as batch:
+        assert batch.integrity_check() == []
+        logged = batch.rows("SELECT COUNT(*) FROM actions WHERE reviewer = 'loop'")[0][0]
+        assert last + 1 <= logged <= last + 2
+        fields = [r[0] for r in batch.rows("SELECT id FROM fields ORDER BY id")]
+        # each field holds the last value set to it (only the field after the last one
+        # printed may hold a newer value: it is left out)
+        for i in range(last + 2 - len(fields), last + 1):
+            assert field_row(batch, fields[i % len(fields)])["value"] == str(i % 1000).zfill(3)
+        confirm(batch, field=fields[0], reviewer="after")  # and the batch is usable as before
+        set_threshold(batch, 0.5, reviewer="after")
