@@ -43,7 +43,7 @@ from recognizer.batch.queries import FieldView, field_states, load_field
 from recognizer.review.actions import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, mark_unreadable, set_field, undo
 
 from .batch_access import ImageCache
-from .look import CAUTION, STATE_MARKS, STATE_WORDS, colour, reasons_in_words
+from .look import CAUTION, STATE_MARKS, STATE_WORDS, reasons_in_words
 
 __all__ = ["ReviewPanel", "BoxTile", "ORDER_CHOICES", "KEY_HELP"]
 

@@ -21,6 +21,8 @@ from collections.abc import Callable
 import cv2
 import numpy as np
 
+from recognizer.digits.preprocess import to_model_input
+
 _CANVAS = 96
 _TRIES = 5
 _LETTERS = "AEFHKMRWX"
@@ -31,45 +33,6 @@ _FONTS = (
     cv2.FONT_HERSHEY_TRIPLEX,
     cv2.FONT_HERSHEY_SCRIPT_SIMPLEX,
 )
-
-
-def to_mnist_layout(ink: np.ndarray) -> np.ndarray:
-    """Bring one ink image to the MNIST layout.
-
-    Parameters
-    ----------
-    ink : ndarray, shape (h, w)
-        Ink intensity (any non-negative scale; white ink on black).
-
-    Returns
-    -------
-    ndarray, float32, shape (28, 28), values 0..1
-        The ink bounding box scaled so its longer side is 20 pixels (keeping
-        aspect), pasted so its centre of mass lands on the centre (14, 14)
-        (rounded to whole pixels).  An image without ink gives zeros.
-    """
-    a = np.asarray(ink, dtype=np.float32)
-    peak = float(a.max()) if a.size else 0.0
-    out = np.zeros((28, 28), np.float32)
-    if peak <= 0:
-        return out
-    a = a / peak
-    ys, xs = np.nonzero(a > 0.05)
-    if ys.size == 0:
-        return out
-    box = a[ys.min() : ys.max() + 1, xs.min() : xs.max() + 1]
-    h, w = box.shape
-    scale = 20.0 / max(h, w)
-    nh, nw = max(1, round(h * scale)), max(1, round(w * scale))
-    interp = cv2.INTER_AREA if scale < 1 else cv2.INTER_LINEAR
-    small = np.clip(cv2.resize(box, (nw, nh), interpolation=interp), 0.0, 1.0)
-    mass = small.sum()
-    cy = (small.sum(axis=1) @ np.arange(nh)) / mass
-    cx = (small.sum(axis=0) @ np.arange(nw)) / mass
-    top, left = int(round(14 - cy)), int(round(14 - cx))
-    top, left = min(max(top, 0), 28 - nh), min(max(left, 0), 28 - nw)
-    out[top : top + nh, left : left + nw] = small
-    return out
 
 
 def _thickness(rng: np.random.Generator) -> int:
@@ -209,7 +172,7 @@ def printed_digits(n: int, *, rng: np.random.Generator) -> tuple[np.ndarray, np.
         thick = int(rng.integers(4, 9))
         (tw, th), _ = cv2.getTextSize(str(d), font, 2.5, thick)
         _put_text(canvas, str(d), ((_CANVAS - tw) // 2, (_CANVAS + th) // 2), font, 2.5, thick)
-        images[i] = to_mnist_layout(canvas)
+        images[i] = to_model_input(canvas)
     return images, labels.astype(np.int64)
 
 
@@ -262,7 +225,7 @@ def junk_marks(
                 _crossed_out(rng, canvas, np.asarray(base, np.float32))
             else:
                 draw[kind](rng, canvas)
-            out[i] = to_mnist_layout(canvas)
+            out[i] = to_model_input(canvas)
             if not _looks_like_one(out[i]):
                 break
     return out

@@ -42,8 +42,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import cv2
 import numpy as np
+
+from recognizer.digits.preprocess import deskew
 
 CLASSES: tuple[str, ...] = tuple(str(d) for d in range(10)) + ("not_a_digit",)
 NOT_A_DIGIT: int = 10
@@ -63,7 +64,6 @@ MNIST_CREDIT = (
 _CURVE_ARRAYS = ("calib_threshold", "calib_residual")
 _DIGIT_SETS = ("replay", "validation")
 _DIGIT_ARRAYS = tuple(f"{k}_{a}" for k in _DIGIT_SETS for a in ("images", "labels"))
-_MAX_SHEAR = 1.0
 
 
 class ModelFileError(Exception):
@@ -78,61 +78,6 @@ class ModelFileError(Exception):
 def timestamp() -> str:
     """The current time as stored in model and batch files: ISO 8601, UTC, whole seconds."""
     return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
-
-
-def deskew(cells: np.ndarray) -> np.ndarray:
-    """Remove the slant of each cell by a moment shear.
-
-    Each row is shifted horizontally by ``s * (y - cy)`` with
-    ``s = mu11 / mu02`` (second-order central moments of the ink) so that the
-    cross moment ``mu11`` of the result is zero; the centre of mass stays put.
-    Rows are resampled with linear interpolation (``cv2.warpAffine``),
-    outside pixels are 0.
-
-    Parameters
-    ----------
-    cells : ndarray, shape (n, 28, 28) or (28, 28)
-        Ink intensity in 0..1 (white ink on black).
-
-    Returns
-    -------
-    ndarray, float32, same shape as ``cells``, values in 0..1.
-        Cells without ink come back unchanged.  The shear factor is clamped
-        to ``[-1, 1]`` so that a stray line cannot be sheared off the cell.
-    """
-    a = np.clip(np.asarray(cells, dtype=np.float32), 0.0, 1.0)
-    single = a.ndim == 2
-    if single:
-        a = a[None]
-    if a.ndim != 3:
-        raise ValueError(f"cells must be (n, h, w) or (h, w), got shape {a.shape}")
-    n, h, w = a.shape
-    if n == 0:
-        return a.copy()
-    ys = np.arange(h, dtype=np.float32)
-    xs = np.arange(w, dtype=np.float32)
-    rows = a.sum(axis=2)  # (n, h)
-    cols = a.sum(axis=1)  # (n, w)
-    mass = rows.sum(axis=1)
-    safe = np.where(mass > 1e-6, mass, 1.0)
-    cy = rows @ ys / safe
-    cx = cols @ xs / safe
-    dy = ys[None, :] - cy[:, None]  # (n, h)
-    dx = xs[None, :] - cx[:, None]  # (n, w)
-    mu02 = np.einsum("ny,ny->n", rows, dy * dy) / safe
-    mu11 = np.einsum("nyx,ny,nx->n", a, dy, dx, optimize=True) / safe
-    shear = np.where(mu02 > 1e-2, mu11 / np.where(mu02 > 1e-2, mu02, 1.0), 0.0)
-    shear = np.clip(shear, -_MAX_SHEAR, _MAX_SHEAR)
-    out = np.empty_like(a)
-    flags = cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP
-    m = np.zeros((n, 2, 3))
-    m[:, 0, 0] = m[:, 1, 1] = 1.0
-    m[:, 0, 1] = shear
-    m[:, 0, 2] = -shear * cy  # output (x, y) samples the input at (x + s * (y - cy), y)
-    for i in range(n):
-        cv2.warpAffine(a[i], m[i], (w, h), dst=out[i], flags=flags, borderMode=cv2.BORDER_CONSTANT)
-    np.clip(out, 0.0, 1.0, out=out)
-    return out[0] if single else out
 
 
 def _softmax(z: np.ndarray) -> np.ndarray:

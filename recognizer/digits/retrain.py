@@ -63,7 +63,8 @@ from threadpoolctl import threadpool_limits
 
 from recognizer.batch.store import Batch, SampleRef, labelled_samples
 from recognizer.digits.marks import junk_marks
-from recognizer.digits.model import NOT_A_DIGIT, DigitModel, deskew, timestamp
+from recognizer.digits.model import NOT_A_DIGIT, DigitModel, timestamp
+from recognizer.digits.preprocess import deskew
 from recognizer.digits.training import TrainSettings, _with_offset, augment, calibrate, export_member
 
 Progress = Callable[[str], None]

@@ -110,8 +110,10 @@ from sklearn.linear_model import LogisticRegression
 from sklearn.neural_network import MLPClassifier
 from threadpoolctl import threadpool_limits
 
-from recognizer.digits.marks import junk_marks, to_mnist_layout
-from recognizer.digits.model import MNIST_CREDIT, NOT_A_DIGIT, DigitModel, deskew, timestamp
+from recognizer.digits.marks import junk_marks
+from recognizer.digits.preprocess import to_model_input
+from recognizer.digits.model import MNIST_CREDIT, NOT_A_DIGIT, DigitModel, timestamp
+from recognizer.digits.preprocess import deskew
 
 Progress = Callable[[str], None]
 
@@ -279,7 +281,7 @@ def augment(cells: np.ndarray, rng: np.random.Generator) -> np.ndarray:
             x = elastic_distortion(x, rng, alpha=rng.uniform(20, 36), sigma=rng.uniform(3.5, 5.0))
         if rng.random() < 0.3:
             x = stroke_thickness(x, rng)
-        out[i] = to_mnist_layout(x) if x.max() > 0 else cell
+        out[i] = to_model_input(x) if x.max() > 0 else cell
     return out
 
 
@@ -307,7 +309,7 @@ def mild_copies(cells: np.ndarray, rng: np.random.Generator, *, strength: float 
         x = random_affine(cell, rng, strength=strength)
         if rng.random() < 0.5:
             x = elastic_distortion(x, rng, alpha=34.0 * strength, sigma=4.5)
-        out[i] = to_mnist_layout(x) if x.max() > 0 else cell
+        out[i] = to_model_input(x) if x.max() > 0 else cell
     return out
 
 

@@ -19,9 +19,9 @@ For each box found by :mod:`recognizer.page.boxes`:
 4. *Specks*: ink blots under 0.12 mm^2 are dropped (dust, noise).
 5. *Blank test*: a box is blank when its ink adds up to less than 0.25 mm^2 or
    spans less than 1.2 mm: a speck of dust is blank, a faint "1" is not.
-6. *MNIST layout* (:func:`normalise`): the ink's bounding box is scaled to fit
-   20 x 20 keeping its aspect ratio, and placed in 28 x 28 with its centre of
-   mass on pixel (14, 14) (row, column indices), white ink on black.
+6. *Model input*: :func:`recognizer.digits.preprocess.to_model_input`, the
+   one path from a box's ink to the digit model, used by reading, training
+   and retraining alike.
 
 Sizes are in mm and scale with the resolution; the thresholds are common
 practice tuned on demo scans, no source.
@@ -35,9 +35,10 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
+from recognizer.digits.preprocess import to_model_input
 from recognizer.page.boxes import MM_PER_INCH, Box, _positive, as_gray_page
 
-__all__ = ["Cell", "cut_cell", "cut_cells", "remove_box_lines", "is_blank", "normalise"]
+__all__ = ["Cell", "cut_cell", "cut_cells", "remove_box_lines", "is_blank"]
 
 _MARGIN_MM = 0.8        # margin kept around the inner box in the crop
 _SMOOTH_MM = 0.08       # smoothing before the ink test
@@ -49,8 +50,6 @@ _LINE_COVER = 0.6       # a band row this much ink is a line remnant
 _SPECK_MM2 = 0.12       # smaller ink blots are dust
 _BLANK_AREA_MM2 = 0.25  # less ink than this is a blank box ...
 _BLANK_EXTENT_MM = 1.2  # ... and so is ink spanning less than this
-_FIT = 20               # MNIST: the ink's bounding box fits this square ...
-_SIDE = 28              # ... centred by mass in this square
 
 
 @dataclass
@@ -116,7 +115,7 @@ def cut_cell(image: np.ndarray, box: Box, *, dpi: float) -> Cell:
     keep = _drop_specks(remove_box_lines(mask[inner], band_px=band), px_per_mm)
     ink = _grey_ink(darkness[inner], keep)
     blank = is_blank(ink, dpi=dpi)
-    return Cell(crop, ink, blank, None if blank else normalise(ink))
+    return Cell(crop, ink, blank, None if blank else to_model_input(ink))
 
 
 def _crop(page: np.ndarray, x0: int, y0: int, x1: int, y1: int) -> np.ndarray:
@@ -244,52 +243,3 @@ def is_blank(ink: np.ndarray, *, dpi: float) -> bool:
         return True
     extent = max(ys.max() - ys.min() + 1, xs.max() - xs.min() + 1) / px_per_mm
     return bool(extent < _BLANK_EXTENT_MM)
-
-
-def normalise(ink: np.ndarray) -> np.ndarray:
-    """MNIST layout of a box's ink.
-
-    Parameters
-    ----------
-    ink : (h, w) float ndarray
-        Ink >= 0 (1 = ink), as :attr:`Cell.ink`.
-
-    Returns
-    -------
-    numpy.ndarray
-        (28, 28) float32 in 0..1, white ink on black: the bounding box of the
-        ink (pixels above 5 % of the darkest) scaled so its longer side is 20
-        pixels, keeping the aspect ratio, and shifted by whole pixels so the
-        centre of mass lies within half a pixel of (row 14, column 14).  All
-        zeros when there is no ink.
-    """
-    ink = np.asarray(ink, np.float32)
-    if ink.ndim != 2:
-        raise ValueError(f"ink must be 2-D, got shape {ink.shape}")
-    out = np.zeros((_SIDE, _SIDE), np.float32)
-    peak = float(ink.max()) if ink.size else 0.0
-    if peak <= 0:
-        return out
-    ys, xs = np.nonzero(ink > 0.05 * peak)
-    glyph = np.clip(ink[ys.min():ys.max() + 1, xs.min():xs.max() + 1] / peak, 0.0, 1.0)
-    h, w = glyph.shape
-    scale = _FIT / max(h, w)
-    size = (max(1, int(round(w * scale))), max(1, int(round(h * scale))))
-    glyph = cv2.resize(glyph, size, interpolation=cv2.INTER_AREA if scale < 1 else cv2.INTER_LINEAR)
-    glyph = np.clip(glyph, 0.0, None)
-    glyph /= max(float(glyph.max()), 1e-6)
-    total = float(glyph.sum())
-    cy = float((glyph.sum(axis=1) * np.arange(glyph.shape[0])).sum()) / total
-    cx = float((glyph.sum(axis=0) * np.arange(glyph.shape[1])).sum()) / total
-    top, left = int(round(_SIDE / 2 - cy)), int(round(_SIDE / 2 - cx))
-    _paste(out, glyph, top, left)
-    return out
-
-
-def _paste(canvas: np.ndarray, patch: np.ndarray, top: int, left: int) -> None:
-    """Write ``patch`` into ``canvas`` with its corner at (top, left), clipped to the canvas."""
-    h, w = patch.shape
-    r0, c0 = max(top, 0), max(left, 0)
-    r1, c1 = min(top + h, canvas.shape[0]), min(left + w, canvas.shape[1])
-    if r0 < r1 and c0 < c1:
-        canvas[r0:r1, c0:c1] = patch[r0 - top:r1 - top, c0 - left:c1 - left]

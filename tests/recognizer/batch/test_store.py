@@ -20,15 +20,13 @@ import time
 from dataclasses import replace
 from pathlib import Path
 
-import cv2
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 
 import recognizer.batch.store as batch_module
 from tests.support.batches import (
-    CARD, DPI, FakeModel, add_page, digit_ids, fake_reader, field_id, field_row, make_page, new_batch, one_hot,
-    scan_files,
+    CARD, DPI, FakeModel, add_page, digit_ids, fake_reader, field_id, field_row, make_page, new_batch, scan_files,
 )
 from recognizer.batch.store import (
     APPLICATION_ID,
@@ -42,8 +40,7 @@ from recognizer.batch.store import (
 )
 from recognizer.page.boxes import Box
 from recognizer.page.cells import cut_cell
-from recognizer.digits.model import CLASSES, NOT_A_DIGIT
-from recognizer.reading.page import UNREADABLE_MARK, DigitRead, FieldRead, PageRead, field_value
+from recognizer.digits.model import NOT_A_DIGIT
 from recognizer.review.actions import CONFIRMED, CORRECTED, READ, TO_CHECK, confirm, set_digit, set_field, set_threshold
 from recognizer.scans.files import ScanProblem
 from tests.support import REPO

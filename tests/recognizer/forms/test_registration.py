@@ -1,7 +1,6 @@
 """Registration of generated weigh-in cards to the sample orchard template."""
 
 import dataclasses
-from pathlib import Path
 
 import numpy as np
 import pytest

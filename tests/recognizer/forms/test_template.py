@@ -195,7 +195,6 @@ def test_round_trip(tmp_path):
 
 
 def test_sample_orchard_template_loads():
-    from pathlib import Path
     t = load_template(REPO / "sample_forms" / "orchard_card.json")
     assert [f.name for f in t.fields][:2] == ["grower_number", "picking_date"]
     assert t.field("net_weight").decimals == 1 and len(t.field("net_weight").boxes) == 5

@@ -9,7 +9,8 @@ from numpy.testing import assert_allclose, assert_array_equal
 
 from recognizer.synth import forms as fg
 from recognizer.page.boxes import Box, find_fields
-from recognizer.page.cells import Cell, cut_cell, cut_cells, is_blank, normalise, remove_box_lines
+from recognizer.digits.preprocess import to_model_input as normalise
+from recognizer.page.cells import Cell, cut_cell, cut_cells, is_blank, remove_box_lines
 
 MM = 25.4
 

@@ -3,13 +3,12 @@ re-reading with another model, and the ``review`` / ``status`` commands."""
 
 from __future__ import annotations
 
-import argparse
 
 import numpy as np
 import pytest
 
 from recognizer.batch.store import Batch
-from recognizer.cli.batch import add_batch_commands, parse_ref
+from recognizer.cli.batch import parse_ref
 from recognizer.review.actions import (
     CONFIRMED,
     CORRECTED,

@@ -5,7 +5,6 @@ truth of generated forms."""
 from __future__ import annotations
 
 import csv
-import io
 from pathlib import Path
 
 import numpy as np
