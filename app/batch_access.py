@@ -4,23 +4,32 @@ notifications on the main thread, and page images as Qt images.
 :class:`ChangeRelay` turns the batch's change notifications, which may come
 from a worker thread, into a Qt signal handled on the main thread. The worker
 and the window share one open batch (a batch has one writer at a time;
-:class:`recognizer.batch.store.Batch` serialises the two threads' queries and
+:class:`recognizer.batch.Batch` serialises the two threads' queries and
 transactions). What the views show (page list counts, one field with its
 boxes, the fields of a page) comes from :mod:`recognizer.batch.queries`.
+
+:class:`ImageCache` keeps the decoded page images, their Qt copies and the box
+crops in three :class:`LruCache` s, so moving between fields does not decode
+the same image twice.
 """
 
 from __future__ import annotations
 
 from collections import OrderedDict
+from collections.abc import Callable, Hashable
+from typing import Generic, TypeVar
 
 import numpy as np
 from PySide6.QtCore import QObject, Signal
 from PySide6.QtGui import QImage
 
-from recognizer.batch.store import Batch, Change
+from recognizer.batch import Batch, Change
 from recognizer.batch.queries import FieldView
 
-__all__ = ["ChangeRelay", "to_qimage", "ImageCache"]
+__all__ = ["ChangeRelay", "to_qimage", "LruCache", "ImageCache"]
+
+K = TypeVar("K", bound=Hashable)
+V = TypeVar("V")
 
 
 class ChangeRelay(QObject):
@@ -42,47 +51,56 @@ def to_qimage(image: np.ndarray) -> QImage:
     return QImage(a.data, w, h, w, QImage.Format.Format_Grayscale8).copy()
 
 
+class LruCache(Generic[K, V]):
+    """The ``size`` values last asked for, each made by ``load(key)`` the first time.
+
+    A value of None is kept like any other (a page without an image is not
+    asked for again).
+    """
+
+    def __init__(self, load: Callable[[K], V], size: int) -> None:
+        self._load = load
+        self._size = size
+        self._items: OrderedDict[K, V] = OrderedDict()
+
+    def get(self, key: K) -> V:
+        if key in self._items:
+            self._items.move_to_end(key)
+            return self._items[key]
+        value = self._load(key)
+        self._items[key] = value
+        while len(self._items) > self._size:
+            self._items.popitem(last=False)
+        return value
+
+    def __contains__(self, key: object) -> bool:
+        return key in self._items
+
+    def __len__(self) -> int:
+        return len(self._items)
+
+
 class ImageCache:
-    """Least-recently-used cache of decoded page images and box crops."""
+    """Least-recently-used caches of decoded page images, their Qt images and box crops."""
 
     def __init__(self, batch: Batch, *, pages: int = 6, crops: int = 4000) -> None:
         self.batch = batch
-        self._pages: OrderedDict[int, np.ndarray | None] = OrderedDict()
-        self._crops: OrderedDict[int, QImage] = OrderedDict()
-        self._max_pages = pages
-        self._max_crops = crops
-        self._qpages: OrderedDict[int, QImage | None] = OrderedDict()
+        self._pages: LruCache[int, np.ndarray | None] = LruCache(batch.page_image, pages)
+        self._qpages: LruCache[int, QImage | None] = LruCache(self._page_qimage, pages)
+        self._crops: LruCache[int, QImage] = LruCache(lambda digit_id: to_qimage(batch.digit_crop(digit_id)), crops)
 
     def page(self, page_id: int) -> np.ndarray | None:
-        if page_id in self._pages:
-            self._pages.move_to_end(page_id)
-            return self._pages[page_id]
-        image = self.batch.page_image(page_id)
-        self._pages[page_id] = image
-        while len(self._pages) > self._max_pages:
-            self._pages.popitem(last=False)
-        return image
+        return self._pages.get(page_id)
 
     def page_qimage(self, page_id: int) -> QImage | None:
-        if page_id in self._qpages:
-            self._qpages.move_to_end(page_id)
-            return self._qpages[page_id]
+        return self._qpages.get(page_id)
+
+    def _page_qimage(self, page_id: int) -> QImage | None:
         image = self.page(page_id)
-        q = None if image is None else to_qimage(image)
-        self._qpages[page_id] = q
-        while len(self._qpages) > self._max_pages:
-            self._qpages.popitem(last=False)
-        return q
+        return None if image is None else to_qimage(image)
 
     def crop(self, digit_id: int) -> QImage:
-        if digit_id in self._crops:
-            self._crops.move_to_end(digit_id)
-            return self._crops[digit_id]
-        q = to_qimage(self.batch.digit_crop(digit_id))
-        self._crops[digit_id] = q
-        while len(self._crops) > self._max_crops:
-            self._crops.popitem(last=False)
-        return q
+        return self._crops.get(digit_id)
 
     def strip(self, view: FieldView, *, margin: int = 60) -> tuple[QImage, tuple[int, int]] | None:
         """The part of the page around a field, and where its top-left corner is on the page."""

@@ -5,18 +5,22 @@ The hues are chosen from the Okabe & Ito colour-universal-design set (Okabe &
 Ito, "Color Universal Design", 2008), which stays distinguishable for the
 common kinds of colour blindness. Every state also has its own mark and line
 style, so nothing depends on colour alone.
+
+Why a field is flagged is put in words by :func:`recognizer.states.reasons_in_words`
+(one list of reasons and words for the library and the window).
 """
 
 from __future__ import annotations
 
 from PySide6.QtCore import Qt
 from PySide6.QtGui import QColor
+from PySide6.QtWidgets import QLabel
 
-from recognizer.cli.main import CAUTION
-from recognizer.review.actions import CONFIRMED, CORRECTED, READ, TO_CHECK, UNREADABLE
+from recognizer import CAUTION
+from recognizer.review import CONFIRMED, CORRECTED, READ, TO_CHECK, UNREADABLE
 
-__all__ = ["STATE_COLOURS", "STATE_MARKS", "STATE_WORDS", "STATE_LINES", "REASON_WORDS", "CAUTION",
-           "SHORT_CAUTION", "colour", "reasons_in_words"]
+__all__ = ["STATE_COLOURS", "STATE_MARKS", "STATE_WORDS", "STATE_LINES", "CAUTION", "SHORT_CAUTION",
+           "CAUTION_STYLE", "colour", "caution_label"]
 
 STATE_COLOURS = {
     TO_CHECK: QColor("#D55E00"),     # vermillion
@@ -41,22 +45,19 @@ STATE_LINES = {
     UNREADABLE: (Qt.PenStyle.DotLine, 4),
     READ: (Qt.PenStyle.SolidLine, 1),
 }
-#: The review queue's reasons in the words the window uses.
-REASON_WORDS = {
-    "low confidence": "a digit the reader is unsure of",
-    "not a digit": "a mark that may not be a digit",
-    "gap": "an empty box between digits",
-    "page warnings": "the page was hard to line up",
-    "layout differs": "this page's boxes differ from the other pages",
-}
 SHORT_CAUTION = "Automatic reading makes mistakes: check what is flagged before using the figures."
+#: The caution's box: dark text on light amber, with an amber border.
+CAUTION_STYLE = "QLabel { background: #FFF4D6; color: #4A3B00; border: 1px solid #E69F00; padding: 6px; }"
 
 
 def colour(state: str) -> QColor:
     return STATE_COLOURS.get(state, STATE_COLOURS[READ])
 
 
-def reasons_in_words(why: tuple[str, ...]) -> str:
-    """The reasons a field is flagged, in words; a broken template rule shows as the rule says it."""
-    return "; ".join(f"a rule is broken — {w[5:]}" if w.startswith("rule ") else REASON_WORDS.get(w, w)
-                     for w in why)
+def caution_label() -> QLabel:
+    """The full caution (:data:`CAUTION`) in its amber box, named "Caution" for screen readers."""
+    label = QLabel("⚠ " + CAUTION)
+    label.setWordWrap(True)
+    label.setAccessibleName("Caution")
+    label.setStyleSheet(CAUTION_STYLE)
+    return label

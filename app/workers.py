@@ -1,18 +1,24 @@
 """Long library calls in worker threads: reading scans, retraining, re-reading.
 
-Each worker is a QObject moved to a QThread (see :func:`start_worker`); its
-signals are delivered to the window on the main thread, and the thread ends
-after ``finished`` or ``failed``.
+Every worker has one shape, :class:`Worker`: a QObject moved to a QThread
+(see :func:`start_worker`) whose :meth:`Worker.run` calls its :meth:`~Worker.work`
+once and ends with exactly one of two signals, ``finished(result)`` or
+``failed(message)``; the thread stops after either. Signals are delivered to
+the window on the main thread. A worker with progress declares its own
+``progress`` signal (its arguments differ from worker to worker). A
+:class:`Job` follows one worker's thread from the main thread: ``running``
+until the thread has stopped, then ``ended``.
 
-* :class:`ReadWorker` calls :func:`recognizer.batch.store.ingest_scans`, which
+* :class:`ReadWorker` calls :func:`recognizer.ingest.ingest_scans`, which
   commits every page as soon as it is read, so a cancelled or killed run
-  keeps what was read and the next run reads only the missing pages.
+  keeps what was read and the next run reads only the missing pages. It stops
+  after the current page when cancelled (:meth:`Worker.cancel`).
 * :class:`RetrainWorker` fine-tunes the batch's model on its corrected and
   confirmed digits (:func:`recognizer.digits.retrain.retrain`). The library's
-  progress callback cannot stop it, so it has no cancel: it runs to the end
-  (a minute or so) and writes nothing; the person decides afterwards.
+  progress callback cannot stop it, so cancelling does nothing: it runs to
+  the end (a minute or so) and writes nothing; the person decides afterwards.
 * :class:`RereadWorker` switches the batch to a model and reads its unchecked
-  digits again (:func:`recognizer.review.actions.reread_unchecked`).
+  digits again (:func:`recognizer.review.reread_unchecked`).
 """
 
 from __future__ import annotations
@@ -20,20 +26,76 @@ from __future__ import annotations
 import threading
 import traceback
 from pathlib import Path
+from typing import Any
 
 from PySide6.QtCore import QObject, Qt, QThread, Signal, Slot
 
-from recognizer.batch.store import Batch, ingest_scans
+from recognizer.batch import Batch
 from recognizer.digits.model import DigitModel
-from recognizer.reading.stream import ReadSettings
-from recognizer.digits.retrain import MIN_SAMPLES, RetrainSettings, batch_cells, retrain
-from recognizer.review.actions import reread_unchecked
+from recognizer.digits.retrain import MIN_SAMPLES, RetrainSettings
+from recognizer.ingest import ReadSettings, ingest_scans
+from recognizer.learning import batch_samples, learn
+from recognizer.review import reread_unchecked
 from recognizer.scans.files import ScanProblem, count_pages
 
-__all__ = ["ReadWorker", "RetrainWorker", "RereadWorker", "start_worker"]
+__all__ = ["Worker", "Refused", "Job", "ReadWorker", "RetrainWorker", "RereadWorker", "start_worker",
+           "too_few_message"]
 
 
-class ReadWorker(QObject):
+class Refused(Exception):
+    """Raised by :meth:`Worker.work` to end with ``failed(message)`` in plain words, without a traceback."""
+
+
+class Worker(QObject):
+    """One long call in a worker thread.
+
+    Subclasses implement :meth:`work` and set :attr:`stopped_words`.
+
+    Signals
+    -------
+    finished(result)
+        What :meth:`work` returned.
+    failed(message)
+        A :class:`Refused` in its own words, or an unexpected error as
+        ``"<stopped_words>: <error>"`` and the start of its traceback; what
+        the library committed before it stays.
+    """
+
+    finished = Signal(object)
+    failed = Signal(str)
+
+    #: Begins the message of an unexpected error.
+    stopped_words = "Stopped"
+
+    def __init__(self) -> None:
+        super().__init__()
+        self._stop = threading.Event()
+
+    def cancel(self) -> None:
+        """Ask the worker to stop at its next stopping point (thread-safe; see :meth:`should_stop`)."""
+        self._stop.set()
+
+    def should_stop(self) -> bool:
+        """Whether :meth:`cancel` was called (for library calls that can stop part-way)."""
+        return self._stop.is_set()
+
+    def work(self) -> Any:
+        raise NotImplementedError
+
+    @Slot()
+    def run(self) -> None:
+        try:
+            result = self.work()
+        except Refused as exc:
+            self.failed.emit(str(exc))
+            return
+        except Exception as exc:  # reported to the person, the window goes on
+            self.failed.emit(f"{self.stopped_words}: {exc}\n\n{traceback.format_exc(limit=3)}")
+            return
+        self.finished.emit(result)
+
+
+class ReadWorker(Worker):
     """Reads scan files into an open batch.
 
     Signals
@@ -42,14 +104,13 @@ class ReadWorker(QObject):
         After each page (``total`` counts every page of the files given,
         including pages already in the batch).
     finished(summary)
-        An :class:`recognizer.batch.store.IngestSummary` (``stopped`` when cancelled).
+        An :class:`recognizer.ingest.IngestSummary` (``stopped`` when cancelled).
     failed(message)
         An unexpected error; the pages read before it stay in the batch.
     """
 
     progress = Signal(int, int, str)
-    finished = Signal(object)
-    failed = Signal(str)
+    stopped_words = "Reading stopped"
 
     def __init__(self, batch: Batch, files: list[Path], problems: list[ScanProblem],
                  model: DigitModel | None, *, template_paths: tuple[str, ...] = ()) -> None:
@@ -59,35 +120,24 @@ class ReadWorker(QObject):
         self.files = files
         self.problems = problems
         self.model = model
-        self._stop = threading.Event()
 
-    def cancel(self) -> None:
-        """Ask the worker to stop after the page it is reading (thread-safe)."""
-        self._stop.set()
+    def work(self):
+        total = sum(n for n in (count_pages(p) for p in self.files) if isinstance(n, int))
+        done = 0
 
-    @Slot()
-    def run(self) -> None:
-        try:
-            total = sum(n for n in (count_pages(p) for p in self.files) if isinstance(n, int))
-            done = 0
+        def on_result(result) -> None:
+            nonlocal done
+            done += 1
+            page = getattr(result, "page", None)
+            self.progress.emit(done, total, f"{Path(result.source).name}" + (f", page {page}" if page else ""))
 
-            def on_result(result) -> None:
-                nonlocal done
-                done += 1
-                page = getattr(result, "page", None)
-                self.progress.emit(done, total, f"{Path(result.source).name}" + (f", page {page}" if page else ""))
-
-            summary = ingest_scans(
-                self.batch, self.files, settings=ReadSettings(keep_image=True, template_paths=self.template_paths), workers=1,
-                model=self.model, problems=self.problems, on_result=on_result, should_stop=self._stop.is_set,
-            )
-        except Exception as exc:  # reported to the person, the window goes on
-            self.failed.emit(f"Reading stopped: {exc}\n\n{traceback.format_exc(limit=3)}")
-            return
-        self.finished.emit(summary)
+        return ingest_scans(
+            self.batch, self.files, settings=ReadSettings(keep_image=True, template_paths=self.template_paths),
+            workers=1, model=self.model, problems=self.problems, on_result=on_result, should_stop=self.should_stop,
+        )
 
 
-class RetrainWorker(QObject):
+class RetrainWorker(Worker):
     """Retrains ``model`` on the corrected and confirmed digits of an open batch.
 
     Signals
@@ -103,8 +153,7 @@ class RetrainWorker(QObject):
     """
 
     progress = Signal(str)
-    finished = Signal(object)
-    failed = Signal(str)
+    stopped_words = "Retraining stopped"
 
     def __init__(self, batch: Batch, model: DigitModel, settings: RetrainSettings = RetrainSettings()) -> None:
         super().__init__()
@@ -112,36 +161,20 @@ class RetrainWorker(QObject):
         self.model = model
         self.settings = settings
 
-    @Slot()
-    def run(self) -> None:
-        from recognizer.digits.evaluation import evaluate_model, load_heldout
-
+    def work(self):
         try:
             self.progress.emit("Cutting the checked digits again from the pages…")
-            samples = batch_cells(self.batch)
+            samples, counts = batch_samples([self.batch])
             if len(samples.labels) < MIN_SAMPLES:
-                self.failed.emit(too_few_message(len(samples.labels)))
-                return
-            self.progress.emit("Loading the 5,000 held-out digits…")
+                raise Refused(too_few_message(len(samples.labels)))
             try:
-                heldout = load_heldout()
+                result = learn(self.model, samples, counts=counts, settings=self.settings, measure=True,
+                               progress=self.progress.emit)
             except RuntimeError as exc:
-                self.failed.emit(f"Retraining needs the held-out check digits to measure the new model: {exc}.")
-                return
-            counts = [{"file": Path(self.batch.path).name, "samples": len(samples.labels)}]
-            result = retrain(self.model, samples, heldout=heldout, settings=self.settings, batches=counts,
-                             progress=self.progress.emit)
-            self.progress.emit("Measuring the new model on the held-out digits…")
-            figures = evaluate_model(result.model, *heldout)
-            result.model.metadata["evaluation"] = {k: v for k, v in figures.items()
-                                                   if k not in ("confidence", "correct")}
+                raise Refused(f"Retraining needs the held-out check digits to measure the new model: {exc}.") from exc
         except ValueError as exc:  # the library's refusals (e.g. a model without replay digits)
-            self.failed.emit(f"Cannot retrain: {exc}.")
-            return
-        except Exception as exc:  # reported to the person, the window goes on
-            self.failed.emit(f"Retraining stopped: {exc}\n\n{traceback.format_exc(limit=3)}")
-            return
-        self.finished.emit(result)
+            raise Refused(f"Cannot retrain: {exc}.") from exc
+        return result
 
 
 def too_few_message(n: int) -> str:
@@ -151,18 +184,17 @@ def too_few_message(n: int) -> str:
             "own handwriting help most).")
 
 
-class RereadWorker(QObject):
+class RereadWorker(Worker):
     """Switches a batch to ``model`` (saved at ``model_path``) and re-reads its unchecked digits.
 
     Signals
     -------
     finished(summary)
-        A :class:`recognizer.review.actions.RereadSummary`.
+        A :class:`recognizer.review.RereadSummary`.
     failed(message)
     """
 
-    finished = Signal(object)
-    failed = Signal(str)
+    stopped_words = "Reading again stopped"
 
     def __init__(self, batch: Batch, model: DigitModel, model_path: Path) -> None:
         super().__init__()
@@ -170,18 +202,16 @@ class RereadWorker(QObject):
         self.model = model
         self.model_path = model_path
 
-    @Slot()
-    def run(self) -> None:
-        try:
-            summary = reread_unchecked(self.batch, self.model, model_path=str(Path(self.model_path).resolve()))
-        except Exception as exc:  # reported to the person, the window goes on
-            self.failed.emit(f"Reading again stopped: {exc}\n\n{traceback.format_exc(limit=3)}")
-            return
-        self.finished.emit(summary)
+    def work(self):
+        return reread_unchecked(self.batch, self.model, model_path=str(Path(self.model_path).resolve()))
 
 
-def start_worker(worker: ReadWorker | RetrainWorker | RereadWorker, parent: QObject) -> QThread:
-    """Move ``worker`` to a new thread, wire the clean-up to both ends, and start it."""
+def start_worker(worker: Worker, parent: QObject, *, on_stopped=None) -> QThread:
+    """Move ``worker`` to a new thread, wire the clean-up to both ends, and start it.
+
+    ``on_stopped`` (a slot of a main-thread object) is connected to the
+    thread's ``finished`` before the thread starts, so it cannot be missed.
+    """
     thread = QThread(parent)
     worker.moveToThread(thread)
     thread.started.connect(worker.run)
@@ -192,5 +222,40 @@ def start_worker(worker: ReadWorker | RetrainWorker | RereadWorker, parent: QObj
     # window lets go of it, after the thread has stopped. Also asking Qt to
     # delete it (deleteLater) would give it two owners.
     thread.finished.connect(thread.deleteLater)
+    if on_stopped is not None:
+        thread.finished.connect(on_stopped)
     thread.start()
     return thread
+
+
+class Job(QObject):
+    """A worker running in its own thread, followed from the main thread.
+
+    Signals
+    -------
+    ended(job)
+        The thread has stopped (after the worker's ``finished`` or ``failed``
+        was delivered); ``running`` is False from then on, and the job is
+        deleted soon after (let go of it in the handler).
+    """
+
+    ended = Signal(object)
+
+    def __init__(self, worker: Worker, parent: QObject) -> None:
+        super().__init__(parent)
+        self.worker: Worker | None = worker
+        self.thread: QThread | None = start_worker(worker, self, on_stopped=self._on_thread_finished)
+
+    @property
+    def running(self) -> bool:
+        return self.thread is not None
+
+    def wait(self) -> None:
+        """Block until the worker's thread has stopped."""
+        if self.thread is not None:
+            self.thread.wait()
+
+    def _on_thread_finished(self) -> None:
+        self.thread = self.worker = None
+        self.ended.emit(self)
+        self.deleteLater()  # its parent owns it; nothing uses it after ``ended``

@@ -27,9 +27,9 @@ def _cells() -> tuple[np.ndarray, str]:
 
         return load_heldout()[0], "held-out MNIST digits"
     except RuntimeError:
-        from recognizer.digits.marks import junk_marks
+        from recognizer.digits.marks import not_digit_marks
 
-        return junk_marks(5000, rng=np.random.default_rng(0)), "generated marks"
+        return not_digit_marks(5000, rng=np.random.default_rng(0)), "generated marks"
 
 
 def main() -> None:

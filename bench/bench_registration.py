@@ -27,7 +27,7 @@ from recognizer.digits.model import load_model
 from recognizer.reading.page import PageReader
 from recognizer.forms.registration import Registrar
 from recognizer.scans.files import Page
-from recognizer.forms.template import load_template
+from recognizer.forms.template_file import load_template
 
 TEMPLATE = Path(__file__).resolve().parents[1] / "sample_forms" / "orchard_card.json"
 DPIS = (150, 200, 240, 300, 400, 600)

@@ -31,10 +31,10 @@ from PySide6.QtCore import Qt  # noqa: E402
 from PySide6.QtTest import QTest  # noqa: E402
 from PySide6.QtWidgets import QApplication  # noqa: E402
 
-from recognizer.batch.store import Batch  # noqa: E402
+from recognizer.batch import Batch  # noqa: E402
 from recognizer.digits.model import load_model  # noqa: E402
 from recognizer.reading.page import PageReader  # noqa: E402
-from recognizer.review.actions import set_target_error  # noqa: E402
+from recognizer.review import set_target_error  # noqa: E402
 from recognizer.scans.files import load_page  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -1,16 +1,18 @@
-"""Read-only views of a batch for a program showing it: per-page counts, one
-field with its boxes, the fields of a page, and what a threshold would do.
+"""Read-only views of a batch for the window, the commands and ingest: the files and
+pages stored, per-page counts, one field with its boxes, the fields of a page, and
+what a threshold would do.
 
 Everything here only reads what is stored (no recognition, no writes); the
-meaning of the states is in :mod:`recognizer.review.actions`, the tables in
-:mod:`recognizer.batch.store`. Functions taking ``field_ids`` or ``page_ids``
-return nothing for an empty list.
+meaning of the states is in :mod:`recognizer.states`, the tables in
+:mod:`recognizer.batch.schema`. Functions taking ``field_ids`` or ``page_ids``
+return nothing for an empty list. The rows the review package works from are
+in :mod:`recognizer.batch.review_rows`.
 """
 
 from __future__ import annotations
 
 import json
-from collections import defaultdict
+from collections import Counter, defaultdict
 from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
@@ -19,9 +21,24 @@ from typing import NamedTuple
 import numpy as np
 
 from recognizer.batch.store import Batch
-from recognizer.review.actions import CONFIRMED, CORRECTED, READ, TO_CHECK, UNREADABLE, combine_states, digit_to_check
+from recognizer.states import State, combine_states, digit_to_check
+
+READ, TO_CHECK, CORRECTED, CONFIRMED, UNREADABLE = (
+    State.READ.value, State.TO_CHECK.value, State.CORRECTED.value, State.CONFIRMED.value, State.UNREADABLE.value)
 
 __all__ = [
+    "BoxEdges",
+    "decode_boxes",
+    "StoredFile",
+    "StoredPage",
+    "FieldPlace",
+    "stored_files",
+    "stored_pages",
+    "page_dpi",
+    "find_field_id",
+    "field_place",
+    "count_fields",
+    "state_counts",
     "PageSummary",
     "DigitView",
     "FieldView",
@@ -37,6 +54,7 @@ __all__ = [
     "labelled_count",
 ]
 
+#: A box's pixel edges ``(x0, y0, x1, y1)`` on its stored page.
 BoxEdges = tuple[int, int, int, int]
 
 
@@ -44,11 +62,74 @@ def _marks(ids: list[int]) -> str:
     return ",".join("?" * len(ids))
 
 
-def _boxes(text: str) -> tuple[BoxEdges, ...]:
+def decode_boxes(text: str) -> tuple[BoxEdges, ...]:
+    """A field's boxes from the JSON of ``fields.boxes``."""
     return tuple(tuple(b) for b in json.loads(text))
 
 
+
+# --------------------------------------------------------------------------- files
+
+
+@dataclass(frozen=True)
+class StoredFile:
+    """A source file of the batch: its path as given, its content's sha256 (None for a
+    file that could not be read) and whether all its pages are read."""
+
+    file_id: int
+    path: str
+    sha256: str | None
+    complete: bool
+
+
+def stored_files(batch: Batch) -> list[StoredFile]:
+    """Every source file of the batch, in the order they were added."""
+    return [StoredFile(r["id"], r["path"], r["sha256"], bool(r["complete"]))
+            for r in batch.rows("SELECT id, path, sha256, complete FROM files ORDER BY id")]
+
+
 # --------------------------------------------------------------------------- pages
+
+
+@dataclass(frozen=True)
+class StoredPage:
+    """A page of the batch, or a problem with a whole file (``page`` None).
+
+    ``problem`` says why it could not be read (None: read); ``template`` names
+    the form template that read it (``orchard_card v1``; None without one).
+    """
+
+    page_id: int
+    file_id: int
+    file: str
+    page: int | None
+    problem: str | None
+    template: str | None
+
+
+def stored_pages(batch: Batch) -> list[StoredPage]:
+    """Every page and file problem of the batch, in file and page order."""
+    return [
+        StoredPage(r["id"], r["file_id"], r["path"], r["page"], r["problem"], r["template"])
+        for r in batch.rows(
+            "SELECT p.id, p.file_id, p.page, p.problem, p.template, fl.path FROM pages p "
+            "JOIN files fl ON fl.id = p.file_id ORDER BY fl.id, p.page"
+        )
+    ]
+
+
+def page_dpi(batch: Batch, page_id: int) -> float | None:
+    """The resolution of a stored page image (None for a page that could not be read).
+
+    Raises
+    ------
+    KeyError
+        No page of that id.
+    """
+    rows = batch.rows("SELECT dpi FROM pages WHERE id = ?", (page_id,))
+    if not rows:
+        raise KeyError(f"no page {page_id}")
+    return rows[0][0]
 
 
 @dataclass(frozen=True)
@@ -109,6 +190,47 @@ def pages_of_fields(batch: Batch, field_ids: Iterable[int]) -> set[int]:
 
 
 # --------------------------------------------------------------------------- fields
+
+
+def find_field_id(batch: Batch, file_id: int, page: int, name: str) -> int | None:
+    """Id of field ``name`` on page ``page`` of file ``file_id`` (None: no such field)."""
+    rows = batch.rows(
+        "SELECT f.id FROM fields f JOIN pages p ON p.id = f.page_id "
+        "WHERE p.file_id = ? AND p.page = ? AND f.name = ?",
+        (file_id, page, name),
+    )
+    return int(rows[0][0]) if rows else None
+
+
+class FieldPlace(NamedTuple):
+    """Where a field is: its file's path as stored, page number and field name."""
+
+    file: str
+    page: int
+    name: str
+
+
+def field_place(batch: Batch, field_id: int) -> FieldPlace:
+    """Where field ``field_id`` is.
+
+    Raises
+    ------
+    KeyError
+        No field of that id.
+    """
+    rows = batch.rows(
+        "SELECT fl.path, p.page, f.name FROM fields f JOIN pages p ON p.id = f.page_id "
+        "JOIN files fl ON fl.id = p.file_id WHERE f.id = ?",
+        (field_id,),
+    )
+    if not rows:
+        raise KeyError(f"no field {field_id}")
+    return FieldPlace(*rows[0])
+
+
+def count_fields(batch: Batch, state: str) -> int:
+    """How many fields are in ``state``."""
+    return int(batch.rows("SELECT COUNT(*) FROM fields WHERE state = ?", (str(state),))[0][0])
 
 
 def field_states(batch: Batch, field_ids: Iterable[int] | None = None) -> dict[int, str]:
@@ -193,7 +315,7 @@ def load_field(batch: Batch, field_id: int) -> FieldView:
         )
     ]
     return FieldView(
-        r["id"], r["page_id"], r["path"], r["page"], r["name"], r["position"], _boxes(r["boxes"]), r["value"],
+        r["id"], r["page_id"], r["path"], r["page"], r["name"], r["position"], decode_boxes(r["boxes"]), r["value"],
         r["read_value"], bool(r["whole"]), r["state"], tuple(digits),
     )
 
@@ -210,7 +332,7 @@ class PageField(NamedTuple):
 def page_fields(batch: Batch, page_id: int) -> list[PageField]:
     """Every field of a page, in reading order."""
     return [
-        PageField(r["id"], r["name"], r["state"], _boxes(r["boxes"]))
+        PageField(r["id"], r["name"], r["state"], decode_boxes(r["boxes"]))
         for r in batch.rows("SELECT id, name, state, boxes FROM fields WHERE page_id = ? ORDER BY position", (page_id,))
     ]
 
@@ -252,14 +374,30 @@ class OpenDigits:
 
 def open_digits(batch: Batch) -> OpenDigits:
     """The digits a new threshold can re-flag (see :class:`OpenDigits`)."""
-    rows = batch.rows(f"SELECT prediction, confidence FROM digits WHERE NOT blank AND state IN ('{READ}', '{TO_CHECK}')")
-    now = int(batch.rows(f"SELECT COUNT(*) FROM digits WHERE state = '{TO_CHECK}'")[0][0])
+    rows = batch.rows("SELECT prediction, confidence FROM digits WHERE NOT blank AND state IN (?, ?)", (READ, TO_CHECK))
+    now = int(batch.rows("SELECT COUNT(*) FROM digits WHERE state = ?", (TO_CHECK,))[0][0])
     return OpenDigits(tuple(r[0] for r in rows), np.array([r[1] for r in rows], np.float64), now)
 
 
 def labelled_count(batch: Batch) -> int:
     """How many boxes a person corrected or confirmed to a per-box value (a quick count of
-    :func:`recognizer.batch.store.labelled_samples`, without cutting any cell)."""
+    :func:`recognizer.batch.samples.labelled_samples`, without cutting any cell)."""
     return int(batch.rows(
-        f"SELECT COUNT(*) FROM digits WHERE state IN ('{CORRECTED}', '{CONFIRMED}') AND NOT blank AND value IS NOT NULL"
+        "SELECT COUNT(*) FROM digits WHERE state IN (?, ?) AND NOT blank AND value IS NOT NULL", (CORRECTED, CONFIRMED)
     )[0][0])
+
+
+def state_counts(batch: Batch) -> dict[str, Counter]:
+    """Pages, fields and digits counted by state: ``{"pages": Counter, "fields": ..., "digits": ...}``."""
+    fields = batch.rows("SELECT page_id, state FROM fields")
+    by_page: dict[int, list[str]] = defaultdict(list)
+    for r in fields:
+        by_page[r["page_id"]].append(r["state"])
+    pages = Counter(
+        State.UNREADABLE if r["problem"] else combine_states(by_page[r["id"]])
+        for r in batch.rows("SELECT id, problem FROM pages")
+    )
+    digits = Counter(
+        r[0] for r in batch.rows("SELECT state FROM digits WHERE NOT blank OR state != ?", (READ,))
+    )
+    return {"pages": pages, "fields": Counter(r["state"] for r in fields), "digits": digits}

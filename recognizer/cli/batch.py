@@ -20,21 +20,15 @@ import argparse
 import sys
 from pathlib import Path
 
+from recognizer.batch.queries import field_place, state_counts, stored_files, stored_pages
 from recognizer.batch.store import Batch, BatchFileError
+from recognizer.review.actions import confirm, default_reviewer, find_field, mark_unreadable, set_field, undo
 from recognizer.review.checked_export import export_checked
-from recognizer.review.actions import (
-    STATES,
-    TO_CHECK,
-    ReviewError,
-    ReviewQueue,
-    confirm,
-    default_reviewer,
-    find_field,
-    mark_unreadable,
-    set_field,
-    state_counts,
-    undo,
-)
+from recognizer.review.errors import ReviewError
+from recognizer.review.queue import ReviewQueue
+from recognizer.states import STATES, State
+
+TO_CHECK = State.TO_CHECK
 
 __all__ = ["add_batch_commands", "run_review", "run_status", "run_export", "parse_ref"]
 
@@ -163,12 +157,8 @@ def _apply(batch: Batch, kind: str, ref: str, field_id: int | None, value: str |
 
 
 def _field_ref(batch: Batch, field_id: int) -> str:
-    r = batch.rows(
-        "SELECT fl.path, p.page, f.name FROM fields f JOIN pages p ON p.id = f.page_id "
-        "JOIN files fl ON fl.id = p.file_id WHERE f.id = ?",
-        (field_id,),
-    )[0]
-    return f"{r[0]}:{r[1]}:{r[2]}"
+    file, page, name = field_place(batch, field_id)
+    return f"{file}:{page}:{name}"
 
 
 def _table(rows: list[list[str]]) -> str:
@@ -178,10 +168,7 @@ def _table(rows: list[list[str]]) -> str:
 
 def _print_list(batch: Batch) -> None:
     items = ReviewQueue(batch, order="page").items()
-    problems = batch.rows(
-        "SELECT fl.path, p.page, p.problem FROM pages p JOIN files fl ON fl.id = p.file_id "
-        "WHERE p.problem IS NOT NULL ORDER BY fl.id, p.page"
-    )
+    problems = [p for p in stored_pages(batch) if p.problem is not None]
     pages = len({(i.file, i.page) for i in items})
     print(f"{len(items)} field(s) to check on {pages} page(s); {len(problems)} page(s) or file(s) not read.")
     if items:
@@ -192,8 +179,8 @@ def _print_list(batch: Batch) -> None:
             for i in items
         ]
         print(_table(rows))
-    for path, page, problem in problems:
-        print(f"not read: {path}" + ("" if page is None else f" page {page}") + f": {problem}")
+    for p in problems:
+        print(f"not read: {p.file}" + ("" if p.page is None else f" page {p.page}") + f": {p.problem}")
 
 
 def run_status(args: argparse.Namespace) -> int:
@@ -205,7 +192,7 @@ def run_status(args: argparse.Namespace) -> int:
     with batch:
         counts = state_counts(batch)
         settings = batch.settings
-        files = batch.rows("SELECT COUNT(*) FROM files")[0][0]
+        files = len(stored_files(batch))
     print(f"{args.batch}: {files} file(s)")
     if settings.threshold is not None:
         how = (f"from a target residual error of {settings.target_error * 100:g} %"

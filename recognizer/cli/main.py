@@ -20,8 +20,9 @@ from contextlib import ExitStack
 from importlib.metadata import entry_points
 from pathlib import Path
 
-from recognizer import __version__
-from recognizer.batch.store import Batch, BatchFileError, ingest_scans
+from recognizer import CAUTION, __version__
+from recognizer.batch.store import Batch, BatchFileError
+from recognizer.ingest import ingest_scans
 from recognizer.cli.batch import add_batch_commands
 from recognizer.cli.model import add_model_commands
 from recognizer.cli.template import add_template_commands
@@ -29,9 +30,10 @@ from recognizer.reading.values_csv import DigitsWriter, ValuesTable
 from recognizer.digits.model import ModelFileError, load_model
 from recognizer.reading.stream import ReadSettings, read_scans
 from recognizer.reading.page import PageRead
-from recognizer.review.actions import DEFAULT_TARGET_ERROR, set_target_error, set_threshold
+from recognizer.states import DEFAULT_TARGET_ERROR
+from recognizer.review.strictness import set_target_error, set_threshold
 from recognizer.scans.files import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, ScanProblem, count_pages, list_scans
-from recognizer.forms.template import TemplateFileError, load_template
+from recognizer.forms.template_file import TemplateFileError, load_template
 
 __all__ = ["main", "build_parser", "COMMANDS_GROUP"]
 
@@ -39,12 +41,6 @@ __all__ = ["main", "build_parser", "COMMANDS_GROUP"]
 #: is a function ``(subparsers) -> None``. The desktop window (``app``) adds
 #: ``inkcount window`` this way, so this library never imports Qt.
 COMMANDS_GROUP = "inkcount.commands"
-
-CAUTION = (
-    "Automatic reading makes mistakes: review every value marked to check before "
-    "using the figures. Medical, legal and financial records follow their own "
-    "verification rules and local regulations."
-)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -128,7 +124,7 @@ class _Tally:
         self.digits_out = digits_out
         self.table = ValuesTable()
         self.problems: list[str] = []
-        self.pages = self.fields = self.digits = self.doubtful = self.fields_to_check = 0
+        self.pages = self.fields = self.digits = self.doubtful = 0
 
     def problem(self, problem: ScanProblem) -> None:
         self.table.add_problem(problem)
@@ -151,7 +147,6 @@ class _Tally:
         self.fields += len(result.fields)
         self.digits += len(result.digits())
         self.doubtful += sum(len(f.doubtful_digits(self.threshold)) for f in result.fields)
-        self.fields_to_check += sum(1 for f in result.fields if result.warnings or f.to_check(self.threshold))
         if self.digits_out:
             self.digits_out.add_page(result)
 
@@ -159,7 +154,7 @@ class _Tally:
         return (
             f"Read {self.pages} page(s): {self.fields} fields, {self.digits} digits. "
             f"{self.doubtful} digit(s) to check (confidence below {self.threshold:.3f}, or not a digit); "
-            f"{self.fields_to_check} field(s) to check. {len(self.problems)} problem(s)."
+            f"{sum(map(len, self.table.to_check()))} field(s) to check. {len(self.problems)} problem(s)."
         )
 
 

@@ -155,7 +155,8 @@ def run_retrain(args: argparse.Namespace) -> int:
 
     from recognizer.batch.store import Batch, BatchFileError
     from recognizer.digits.evaluation import load_heldout
-    from recognizer.digits.retrain import RetrainSettings, gather_cells, retrain
+    from recognizer.digits.retrain import RetrainSettings
+    from recognizer.learning import batch_samples, learn
 
     settings = replace(RetrainSettings(seed=args.seed), **({"epochs": args.epochs} if args.epochs else {}))
     try:
@@ -168,8 +169,7 @@ def run_retrain(args: argparse.Namespace) -> int:
     try:
         for path in args.batches:
             opened.append(Batch.open(path, read_only=True))
-        samples = gather_cells(opened)
-        counts = [{"file": b.path.name, "samples": sum(s == str(b.path) for s in samples.sources)} for b in opened]
+        samples, counts = batch_samples(opened)
     except BatchFileError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
@@ -179,8 +179,8 @@ def run_retrain(args: argparse.Namespace) -> int:
     for c in counts:
         print(f"{c['file']}: {c['samples']} corrected or confirmed digits")
     try:
-        result = retrain(parent, samples, heldout=heldout, settings=settings, batches=counts,
-                         progress=lambda msg: print(msg, flush=True))
+        result = learn(parent, samples, counts=counts, heldout=heldout, settings=settings,
+                       progress=lambda msg: print(msg, flush=True))
     except ValueError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
@@ -205,7 +205,7 @@ def run_retrain(args: argparse.Namespace) -> int:
 def run_use(args: argparse.Namespace) -> int:
     """Handler of ``inkcount model use``; returns the exit code."""
     from recognizer.batch.store import Batch, BatchFileError
-    from recognizer.review.actions import reread_unchecked
+    from recognizer.review.reread import reread_unchecked
 
     try:
         model = load_model(args.model)

@@ -5,7 +5,7 @@
     write a draft template: one optional ``digits`` field per field found,
     named ``f01``, ``f02``, ... (or by ``--names``, in reading order). Names,
     types and rules are then set in the file (its format is described in
-    :mod:`recognizer.forms.template`).
+    :mod:`recognizer.forms.template_file`).
 ``inkcount template check card.json [SCANS...]``
     Load a template, list its fields and rules, and for each page of the
     scans given print how well it registers to the template.
@@ -17,10 +17,11 @@ import argparse
 import sys
 from pathlib import Path
 
-from recognizer.page.boxes import find_fields
-from recognizer.forms.registration import Registrar, draft_template
-from recognizer.scans.files import DEFAULT_PDF_DPI, ScanProblem, iter_pages, list_scans, load_page
-from recognizer.forms.template import Template, TemplateError, TemplateFileError, load_template, save_template
+from recognizer.forms.drafting import draft_from_scan
+from recognizer.forms.registration import Registrar
+from recognizer.scans.files import DEFAULT_PDF_DPI, ScanProblem, iter_pages, list_scans
+from recognizer.forms.template import Template, TemplateError
+from recognizer.forms.template_file import TemplateFileError, load_template, save_template
 
 __all__ = ["add_template_commands"]
 
@@ -54,24 +55,26 @@ def _err(message: str) -> int:
 
 
 def run_new(args: argparse.Namespace) -> int:
-    page = load_page(args.blank, 1, pdf_dpi=args.pdf_dpi)
-    if isinstance(page, ScanProblem):
-        return _err(str(page))
-    finding = find_fields(page.image, dpi=page.dpi)
-    if not finding:
-        return _err(f"{args.blank}: {finding.problem}")
     names = [n.strip() for n in args.names.split(",")] if args.names else None
     try:
-        template = draft_template(finding, name=args.name or args.blank.stem, field_names=names)
+        draft = draft_from_scan(args.blank, pdf_dpi=args.pdf_dpi, name=args.name, field_names=names)
+    except (ValueError, TemplateError) as exc:
+        return _err(str(exc))
+    if draft.scan_problem is not None:  # the page could not be read
+        return _err(str(draft.scan_problem))
+    if not draft:  # no digit boxes on it
+        return _err(f"{args.blank}: {draft.problem}")
+    template = draft.template
+    try:
         save_template(template, args.out)
     except (ValueError, TemplateError) as exc:
         return _err(str(exc))
     except OSError as exc:
         return _err(f"cannot write {args.out}: {exc}")
     print(f"Wrote {args.out}: template {template.name!r}, {len(template.fields)} field(s) "
-          f"from {args.blank} at {page.dpi:g} dpi:")
+          f"from {args.blank} at {template.reference.dpi:g} dpi:")
     _list_fields(template)
-    for warning in finding.warnings:
+    for warning in draft.warnings:
         print(f"  warning: {warning}")
     print("Every field is optional digits: set names, types and rules in the file, and remove "
           "the fields that are not digit fields.")

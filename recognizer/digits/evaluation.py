@@ -11,8 +11,9 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from sklearn.metrics import confusion_matrix as _sklearn_confusion_matrix
 
-from recognizer.digits.marks import junk_marks
+from recognizer.digits.marks import not_digit_marks
 from recognizer.digits.model import CLASSES, NOT_A_DIGIT, DigitModel
 
 HELDOUT_SOURCE = (
@@ -21,8 +22,8 @@ HELDOUT_SOURCE = (
 REJECT_FRACTIONS = (0.0, 0.01, 0.02, 0.05, 0.10, 0.20)
 RESIDUAL_TARGETS = (0.005, 0.002, 0.001, 0.0005)
 DEFAULT_TARGET = 0.001
-JUNK_EVAL_SEED = 20_240_917
-JUNK_EVAL_COUNT = 2000
+NOT_DIGIT_EVAL_SEED = 20_240_917
+NOT_DIGIT_EVAL_COUNT = 2000
 
 
 def expected_calibration_error(conf: np.ndarray, correct: np.ndarray, n_bins: int = 15) -> float:
@@ -119,10 +120,14 @@ def threshold_for_residual_error(conf: np.ndarray, correct: np.ndarray, target: 
 
 
 def confusion_matrix(true: np.ndarray, pred: np.ndarray, n_classes: int = len(CLASSES)) -> np.ndarray:
-    """Counts ``m[t, p]`` of true class ``t`` predicted as ``p``, shape (n_classes, n_classes) int64."""
-    m = np.zeros((n_classes, n_classes), np.int64)
-    np.add.at(m, (np.asarray(true, np.int64), np.asarray(pred, np.int64)), 1)
-    return m
+    """Counts ``m[t, p]`` of true class ``t`` predicted as ``p``, shape (n_classes, n_classes) int64.
+
+    :func:`sklearn.metrics.confusion_matrix` over the classes ``0 .. n_classes - 1``
+    (every class gets its row and column, present or not); no digits give all zeros.
+    """
+    if len(true) == 0:  # scikit-learn refuses empty input
+        return np.zeros((n_classes, n_classes), np.int64)
+    return _sklearn_confusion_matrix(true, pred, labels=range(n_classes)).astype(np.int64, copy=False)
 
 
 def load_heldout() -> tuple[np.ndarray, np.ndarray]:
@@ -149,16 +154,16 @@ def load_heldout() -> tuple[np.ndarray, np.ndarray]:
     return (np.asarray(x, np.float32) / 255.0).reshape(-1, 28, 28), np.asarray(y, np.int64)
 
 
-def evaluation_junk(n: int = JUNK_EVAL_COUNT) -> np.ndarray:
+def evaluation_not_digit_marks(n: int = NOT_DIGIT_EVAL_COUNT) -> np.ndarray:
     """Not-a-digit marks for evaluation: fixed seed, separate from any training generator.
 
     Crossed-out marks use printed (Hershey-font) digits, not training digits.
     """
-    return junk_marks(n, rng=np.random.default_rng(JUNK_EVAL_SEED))
+    return not_digit_marks(n, rng=np.random.default_rng(NOT_DIGIT_EVAL_SEED))
 
 
 def evaluate_model(model: DigitModel, images: np.ndarray, labels: np.ndarray) -> dict[str, Any]:
-    """All figures of a model on labelled digits (plus the generated-junk figure).
+    """All figures of a model on labelled digits (plus the generated not-a-digit marks figure).
 
     Parameters
     ----------
@@ -171,8 +176,9 @@ def evaluate_model(model: DigitModel, images: np.ndarray, labels: np.ndarray) ->
     dict with ``n``, ``accuracy``, ``ece_15``, ``reject_table``,
     ``thresholds`` (per target: validation-curve threshold of the model and
     the threshold/review share measured on these digits), ``not_a_digit_share``
-    (digits predicted as not-a-digit), ``junk`` (share of evaluation junk
-    caught: predicted not-a-digit or below the default review threshold),
+    (digits predicted as not-a-digit), ``junk`` (share of the evaluation
+    not-a-digit marks caught: predicted not-a-digit or below the default
+    review threshold; the key is stored in model metadata and ``figures.json``),
     ``confusion`` (11x11 list), ``confidence`` and ``correct`` lists (for plots).
     """
     labels = np.asarray(labels, np.int64)
@@ -193,8 +199,8 @@ def evaluate_model(model: DigitModel, images: np.ndarray, labels: np.ndarray) ->
             "model_review_share": float(1 - kept.mean()),
             "model_residual_error": float(np.mean(~correct[kept])) if kept.any() else 0.0,
         })
-    junk = evaluation_junk()
-    pj = model.predict_proba(junk)
+    marks = evaluation_not_digit_marks()
+    pj = model.predict_proba(marks)
     default_thr = model.threshold_for(DEFAULT_TARGET)
     caught = (pj.argmax(axis=1) == NOT_A_DIGIT) | (pj.max(axis=1) < default_thr)
     return {
@@ -206,9 +212,9 @@ def evaluate_model(model: DigitModel, images: np.ndarray, labels: np.ndarray) ->
         "reject_table": accuracy_reject_table(conf, correct),
         "thresholds": thresholds,
         "not_a_digit_share": float(np.mean(pred == NOT_A_DIGIT)),
-        "junk": {
-            "n": int(len(junk)),
-            "seed": JUNK_EVAL_SEED,
+        "junk": {  # key kept: stored in model metadata ("evaluation") and figures.json
+            "n": int(len(marks)),
+            "seed": NOT_DIGIT_EVAL_SEED,
             "caught_share": float(caught.mean()),
             "as_not_a_digit_share": float(np.mean(pj.argmax(axis=1) == NOT_A_DIGIT)),
             "default_threshold": default_thr,

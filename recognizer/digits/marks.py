@@ -11,7 +11,13 @@ Shapes that are digits in disguise are left out on purpose: a lone vertical
 or steep straight stroke (a "1"), a closed oval (a "0"), a top bar with a
 stroke down its right end (a "7"), open arcs and hooks (parts of 0, 2, 6) and
 letters such as O, I, S, Z, B, G, C, P, U, V, N, Y.  Measured: with those in
-the training junk, about 1 % of real digits were eaten by the eleventh class.
+the training marks, about 1 % of real digits were eaten by the eleventh class.
+
+Not to be confused with the stray marks of the demo forms
+(:func:`recognizer.synth.handwriting.draw_stray_mark`): one small dot, dash or
+smudge that must leave a box *blank* (it never reaches the model), whereas
+every mark here, the ``"stray"`` kind of scattered dots and ticks included,
+is written ink the model must call not-a-digit.
 """
 
 from __future__ import annotations
@@ -179,14 +185,14 @@ def printed_digits(n: int, *, rng: np.random.Generator) -> tuple[np.ndarray, np.
 KINDS: tuple[str, ...] = ("scribble", "crossed_out", "stray", "box_line", "letter")
 
 
-def junk_marks(
+def not_digit_marks(
     n: int,
     *,
     rng: np.random.Generator,
     digits: np.ndarray | None = None,
     kinds: tuple[str, ...] = KINDS,
 ) -> np.ndarray:
-    """Generate ``n`` marks that are not digits.
+    """Generate ``n`` marks that are not digits (the training class ``NOT_A_DIGIT``).
 
     Parameters
     ----------
@@ -194,7 +200,7 @@ def junk_marks(
         Number of marks.
     rng : numpy.random.Generator
         Source of randomness (use separate generators for training and for
-        evaluation junk).
+        evaluation marks).
     digits : ndarray, shape (m, 28, 28), optional
         Real digits (0..1, MNIST layout) to cross out; printed Hershey-font
         digits are used when omitted.
@@ -213,7 +219,7 @@ def junk_marks(
     }
     unknown = set(kinds) - set(KINDS)
     if unknown:
-        raise ValueError(f"unknown junk kinds {sorted(unknown)}")
+        raise ValueError(f"unknown mark kinds {sorted(unknown)}")
     out = np.zeros((n, 28, 28), np.float32)
     for i in range(n):
         for _ in range(_TRIES):  # redraw marks that came out as a bare upright stroke (a "1")

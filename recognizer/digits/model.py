@@ -5,8 +5,9 @@ probabilities for eleven classes: the digits ``"0"`` .. ``"9"`` and
 ``"not_a_digit"`` (scribbles, crossed-out digits, stray marks, left-over box
 lines).  It is a small ensemble of MLPs (ReLU hidden layers, softmax output)
 whose averaged probabilities are calibrated by temperature scaling
-(Guo et al. 2017).  Only numpy is needed here; training lives in
-:mod:`recognizer.digits.training` (scikit-learn).
+(Guo et al. 2017).  Only numpy is needed here; training and calibration live
+in :mod:`recognizer.digits.training` and :mod:`recognizer.digits.calibration`
+(scikit-learn).
 
 File format
 -----------

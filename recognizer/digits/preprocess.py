@@ -1,7 +1,7 @@
 """The one path from a box's ink to the digit model's input.
 
-Reading (:mod:`recognizer.page.cells`), training and augmentation
-(:mod:`recognizer.digits.training`), not-a-digit marks
+Reading (:mod:`recognizer.page.cells`), augmentation for training and
+retraining (:mod:`recognizer.digits.augment`), not-a-digit marks
 (:mod:`recognizer.digits.marks`) and retraining all call
 :func:`to_model_input`, so the model sees every digit prepared the same way.
 The model itself removes the slant of each cell (:func:`deskew`) before its

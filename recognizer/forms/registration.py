@@ -53,7 +53,7 @@ import cv2
 import numpy as np
 
 from recognizer.page.boxes import MM_PER_INCH, Box, BoxFinding, FieldBoxes, as_gray_page
-from recognizer.forms.template import Reference, Template, TemplateField
+from recognizer.forms.template import Reference, Template
 
 __all__ = [
     "FEATURES_DPI",
@@ -62,7 +62,6 @@ __all__ = [
     "Registrar",
     "Registration",
     "TemplateMatch",
-    "draft_template",
     "match_templates",
     "map_boxes",
     "page_ink",
@@ -436,27 +435,3 @@ def _on_page(reg: Registration, boxes: Sequence[Box], shape: tuple[int, int]) ->
     px, py = reg.to_page(corners[:, 0], corners[:, 1])
     return bool(px.min() >= 0 and py.min() >= 0 and px.max() <= shape[1] and py.max() <= shape[0])
 
-
-def draft_template(finding: BoxFinding, *, name: str, field_names: Sequence[str] | None = None) -> Template:
-    """A first template from the boxes found on a (blank or filled) form.
-
-    Every field becomes an optional ``digits`` field named as the box finder
-    named it (``f01``, ...), or by ``field_names`` in reading order; the user
-    then sets names, types and rules and removes what is not a digit field.
-
-    Parameters
-    ----------
-    finding : BoxFinding
-        From :func:`recognizer.page.boxes.find_fields` on the form (must be truthy).
-    name : str
-        The template's name.
-    field_names : sequence of str, optional
-        One name per field found, in reading order.
-    """
-    if not finding:
-        raise ValueError(f"no fields to make a template of: {finding.problem}")
-    names = list(field_names) if field_names is not None else [f.name for f in finding.fields]
-    if len(names) != len(finding.fields):
-        raise ValueError(f"{len(names)} field names given for {len(finding.fields)} fields found")
-    fields = tuple(TemplateField(n, f.boxes) for n, f in zip(names, finding.fields))
-    return Template(name, 1, reference_for(finding.image, dpi=finding.dpi), fields)

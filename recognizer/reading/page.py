@@ -30,12 +30,14 @@ from recognizer.page.cells import Cell, cut_cells
 from recognizer.digits.model import CLASSES, NOT_A_DIGIT, DigitModel
 from recognizer.forms.registration import Registrar, match_templates
 from recognizer.scans.files import Page
-from recognizer.forms.template import Template, check_page
+from recognizer.forms.template import Template
+from recognizer.forms.values import check_page
+from recognizer.states import NOT_A_DIGIT_MARK, digit_to_check, field_reasons, page_layout
 
-__all__ = ["UNREADABLE_MARK", "DigitRead", "FieldRead", "PageRead", "PageReader", "field_value"]
+__all__ = ["UNREADABLE_MARK", "DigitRead", "FieldRead", "PageRead", "PageReader", "field_value", "reading_of"]
 
 #: Character standing for a mark the model calls "not a digit".
-UNREADABLE_MARK = "?"
+UNREADABLE_MARK = NOT_A_DIGIT_MARK
 
 
 @dataclass
@@ -67,7 +69,7 @@ class FieldRead:
     ``doubts`` are reasons found while finding the boxes to distrust this
     field's boxes (see :class:`recognizer.page.boxes.FieldBoxes`). A page read
     with a template gives each field its ``typed`` value (see
-    :func:`recognizer.forms.template.typed_value`) and the ``rule_problems`` its
+    :func:`recognizer.forms.values.typed_value`) and the ``rule_problems`` its
     value has, each ``"<rule>: <what>"``; both are None / empty otherwise.
     """
 
@@ -84,14 +86,23 @@ class FieldRead:
     def written(self) -> list[DigitRead]:
         return [d for d in self.digits if not d.blank]
 
-    def doubtful_digits(self, threshold: float) -> list[DigitRead]:
-        """Written boxes read below ``threshold`` or as "not a digit"."""
-        return [d for d in self.written if d.not_a_digit or d.confidence < threshold]
+    def doubtful_digits(self, threshold: float | None) -> list[DigitRead]:
+        """Written boxes a person must check (:func:`recognizer.states.digit_to_check`)."""
+        return [d for d in self.written if digit_to_check(d.text, d.confidence, threshold)]
 
-    def to_check(self, threshold: float) -> bool:
-        """Whether a person should look at this field."""
-        return (self.gap or bool(self.doubts) or bool(self.rule_problems)
-                or bool(self.doubtful_digits(threshold)))
+    def reasons(self, threshold: float | None, *, page_warnings: Sequence[str] = (),
+                odd_layout: bool = False) -> tuple[str, ...]:
+        """Why a person must look at this field (:func:`recognizer.states.field_reasons`); empty if not."""
+        doubtful = self.doubtful_digits(threshold)
+        marks = sum(d.not_a_digit for d in doubtful)
+        return field_reasons(
+            unsure_digits=len(doubtful) - marks, marks=marks, gap=self.gap, box_doubts=self.doubts,
+            rule_problems=self.rule_problems, page_warnings=page_warnings, odd_layout=odd_layout,
+        )
+
+    def to_check(self, threshold: float | None) -> bool:
+        """Whether a person should look at this field for its own reasons (no page or layout reasons)."""
+        return bool(self.reasons(threshold))
 
     @property
     def output(self) -> str:
@@ -104,8 +115,8 @@ class PageRead:
     """Everything read off one page.
 
     ``problem`` is set (and ``fields`` empty) when no digit boxes could be
-    found; ``warnings`` list doubtful things met while finding the boxes, in
-    which case every field of the page should be checked. A page read with
+    found; ``warnings`` list doubtful things met while finding the boxes (a
+    reason to check the fields of the page, :mod:`recognizer.states`). A page read with
     templates records the ``template`` that read it (its name and version,
     ``orchard_card v1``) and the ``registration_score``; a page that fits
     none of them has the problem set and ``template`` None.
@@ -127,6 +138,21 @@ class PageRead:
 
     def digits(self) -> list[DigitRead]:
         return [d for f in self.fields for d in f.written]
+
+    def layout(self) -> str | None:
+        """The page's layout (:func:`recognizer.states.page_layout`); None when no boxes were found."""
+        return None if self.problem else page_layout((f.name, len(f.boxes)) for f in self.fields)
+
+
+def reading_of(probs: np.ndarray) -> tuple[str, float]:
+    """The text and confidence of one box from the model's probabilities.
+
+    ``probs`` follows :data:`recognizer.digits.model.CLASSES`; the text is the
+    digit of the most probable class, or :data:`UNREADABLE_MARK` for "not a
+    digit"; the confidence is that class's probability.
+    """
+    best = int(np.argmax(probs))
+    return (UNREADABLE_MARK if best == NOT_A_DIGIT else CLASSES[best]), float(probs[best])
 
 
 def field_value(texts: list[str]) -> tuple[str, bool]:
@@ -217,9 +243,8 @@ class PageReader:
                     continue
                 p = probs[k]
                 k += 1
-                best = int(np.argmax(p))
-                text = UNREADABLE_MARK if best == NOT_A_DIGIT else CLASSES[best]
-                digits.append(DigitRead(i, False, text, float(p[best]), p, cell.crop))
+                text, confidence = reading_of(p)
+                digits.append(DigitRead(i, False, text, confidence, p, cell.crop))
             value, gap = field_value([d.text for d in digits])
             fields.append(FieldRead(boxes.name, tuple(boxes.boxes), digits, value, gap, tuple(boxes.doubts)))
         return PageRead(

@@ -25,7 +25,7 @@ from pathlib import Path
 from recognizer.digits.model import DigitModel, load_model
 from recognizer.reading.page import PageRead, PageReader
 from recognizer.scans.files import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, Page, ScanProblem, count_pages, iter_pages, load_page
-from recognizer.forms.template import load_template
+from recognizer.forms.template_file import load_template
 
 __all__ = ["ReadSettings", "read_scans", "PageJob", "page_jobs"]
 
@@ -34,7 +34,7 @@ __all__ = ["ReadSettings", "read_scans", "PageJob", "page_jobs"]
 class ReadSettings:
     """How pages are loaded and read (plain values, so it can go to a worker).
 
-    ``template_paths`` are form template files (:mod:`recognizer.forms.template`);
+    ``template_paths`` are form template files (:mod:`recognizer.forms.template_file`);
     with any, every page is read with the template it fits best.
     """
 

@@ -7,7 +7,8 @@ keeps its leading zeros.
 Values table columns: ``file, page,`` one column per field (``f01, f02, ...``
 — every field seen on any page, so pages with fewer fields leave the extra
 columns empty), then ``to_check`` (the fields of the row a person should look
-at, separated by spaces) and ``problem`` (why a file or page could not be
+at, separated by spaces: the same rule as in a batch, :mod:`recognizer.states`,
+with the layout judged against the most common layout of the pages read) and ``problem`` (why a file or page could not be
 read; such rows have no values).
 
 Pages read with a form template (:mod:`recognizer.forms.template`) carry the
@@ -27,11 +28,13 @@ from __future__ import annotations
 
 import csv
 import os
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TextIO
 
 from recognizer.reading.page import PageRead
 from recognizer.scans.files import ScanProblem
+from recognizer.states import common_layout
 
 __all__ = ["ValuesTable", "DigitsWriter", "field_sort_key", "open_csv", "csv_writer"]
 
@@ -52,33 +55,63 @@ def field_sort_key(name: str) -> tuple[int, str]:
     return (int(digits), "") if digits.isdigit() else (10**9, name)
 
 
+@dataclass
+class _Row:
+    file: str
+    page: str
+    values: dict[str, str] = field(default_factory=dict)
+    flagged: list[str] = field(default_factory=list)   # fields with reasons of their own (no layout reason)
+    layout: str | None = None
+    problem: str = ""
+    template: str = ""
+    rules: str = ""
+
+
 class ValuesTable:
     """Collects one row per page and writes the values CSV at the end.
 
     The rows are kept (they are short strings) because the header needs
-    every field name of every page before the first row is written.
+    every field name of every page before the first row is written, and
+    because a page's layout is judged against the most common layout of all
+    pages read (:func:`recognizer.states.common_layout`), as in a batch.
     """
 
     def __init__(self) -> None:
-        self.rows: list[tuple[str, str, dict[str, str], list[str], str, str, str]] = []
+        self.rows: list[_Row] = []
         self.fields: dict[str, int] = {}  # name -> order first seen
         self.templated = False
 
-    def add_page(self, page: PageRead, *, threshold: float) -> None:
+    def add_page(self, page: PageRead, *, threshold: float | None) -> None:
         self.templated |= page.template is not None
         if not page:
-            self.rows.append((str(page.source), str(page.page), {}, [], page.problem or "", "", ""))
+            self.rows.append(_Row(str(page.source), str(page.page), problem=page.problem or ""))
             return
         values = {f.name: f.output for f in page.fields}
         for name in values:
             self.fields.setdefault(name, len(self.fields))
-        check = [f.name for f in page.fields if page.warnings or f.to_check(threshold)]
+        flagged = [f.name for f in page.fields if f.reasons(threshold, page_warnings=page.warnings)]
         rules = " | ".join(f"{f.name}: {p}" for f in page.fields for p in f.rule_problems)
-        self.rows.append((str(page.source), str(page.page), values, check, "", page.template or "", rules))
+        self.rows.append(_Row(str(page.source), str(page.page), values, flagged, page.layout(), "",
+                              page.template or "", rules))
 
     def add_problem(self, problem: ScanProblem) -> None:
         page = "" if problem.page is None else str(problem.page)
-        self.rows.append((str(problem.source), page, {}, [], problem.reason, "", ""))
+        self.rows.append(_Row(str(problem.source), page, problem=problem.reason))
+
+    def to_check(self) -> list[list[str]]:
+        """Per row, the fields a person must look at (:mod:`recognizer.states`)."""
+        tallies: dict[str, list[int]] = {}
+        for i, row in enumerate(self.rows):
+            if row.layout is not None:
+                tallies.setdefault(row.layout, [0, i])[0] += 1
+        common = common_layout((layout, n, first) for layout, (n, first) in tallies.items())
+        out = []
+        for row in self.rows:
+            if row.layout is not None and row.layout != common:
+                out.append(list(row.values))  # every field: field_reasons(odd_layout=True)
+            else:
+                out.append(row.flagged)
+        return out
 
     def _names(self) -> list[str]:
         return sorted(self.fields, key=lambda n: (field_sort_key(n)[0], self.fields[n]))
@@ -93,12 +126,12 @@ class ValuesTable:
         with open_csv(path) as fh:
             w = csv_writer(fh)
             w.writerow(self.header())
-            for file, page, values, check, problem, template, rules in self.rows:
-                cells = [values.get(n, "") for n in names]
+            for row, check in zip(self.rows, self.to_check()):
+                cells = [row.values.get(n, "") for n in names]
                 if self.templated:
-                    w.writerow([file, page, template, *cells, " ".join(check), rules, problem])
+                    w.writerow([row.file, row.page, row.template, *cells, " ".join(check), row.rules, row.problem])
                 else:
-                    w.writerow([file, page, *cells, " ".join(check), problem])
+                    w.writerow([row.file, row.page, *cells, " ".join(check), row.problem])
 
 
 DIGIT_COLUMNS = (

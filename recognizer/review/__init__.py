@@ -1,1 +1,38 @@
-"""Review: what a person must check, their actions and undo, the queue, strictness, checked export."""
+"""Review: a person's actions on a batch, the queue of what is left, strictness, re-reading, checked export.
+
+What must be checked is decided by :mod:`recognizer.states`; this package
+records what people do about it. Modules: :mod:`~recognizer.review.actions`
+(set, confirm, unreadable, undo), :mod:`~recognizer.review.queue`,
+:mod:`~recognizer.review.strictness`, :mod:`~recognizer.review.reread`,
+:mod:`~recognizer.review.checked_export`.
+"""
+
+from recognizer.batch.queries import state_counts
+from recognizer.review.actions import (
+    Action,
+    actions,
+    confirm,
+    default_reviewer,
+    find_field,
+    mark_unreadable,
+    set_digit,
+    set_field,
+    undo,
+)
+from recognizer.review.checked_export import ExportResult, checked_table, export_checked, unchecked_message
+from recognizer.review.errors import ReviewError
+from recognizer.review.queue import ORDERS, ReviewItem, ReviewQueue
+from recognizer.review.reread import RereadSummary, reread_unchecked
+from recognizer.review.strictness import set_target_error, set_threshold
+from recognizer.states import DEFAULT_TARGET_ERROR, STATES, State
+
+READ, TO_CHECK, CORRECTED, CONFIRMED, UNREADABLE = (
+    State.READ, State.TO_CHECK, State.CORRECTED, State.CONFIRMED, State.UNREADABLE)
+
+__all__ = [
+    "READ", "TO_CHECK", "CORRECTED", "CONFIRMED", "UNREADABLE", "STATES", "State", "DEFAULT_TARGET_ERROR",
+    "ORDERS", "Action", "ReviewError", "ReviewItem", "ReviewQueue", "RereadSummary", "ExportResult",
+    "actions", "checked_table", "confirm", "default_reviewer", "export_checked", "find_field",
+    "mark_unreadable", "reread_unchecked", "set_digit", "set_field", "set_target_error", "set_threshold",
+    "state_counts", "unchecked_message", "undo",
+]

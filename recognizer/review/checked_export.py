@@ -12,8 +12,8 @@ Values are the reviewed values as text (a grower number ``00412`` keeps its
 zeros); an ``unreadable`` field is empty. Pages read with a form template
 give their fields' typed values after review (``18.7`` with a decimal point,
 ISO 8601 dates ``2026-09-13``, integers without leading zeros; see
-:mod:`recognizer.forms.template`), with the rules checked again on the reviewed
-values (:func:`recognizer.review.actions.recheck_rules`); a typed value that breaks a
+:mod:`recognizer.forms.values`), with the rules checked again on the reviewed
+values (:func:`recognizer.batch.flags.recheck_rules`); a typed value that breaks a
 rule (a date that is no day) shows its digits. When any page was read with a
 template, a column ``template`` (its name and version) follows ``page`` and
 the template's fields come first, in the template's order. The file is RFC 4180 CSV (commas,
@@ -27,12 +27,17 @@ from __future__ import annotations
 
 import os
 from collections import defaultdict
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
+from recognizer.batch.queries import count_fields, stored_pages
+from recognizer.batch.review_rows import CheckedField, checked_fields
 from recognizer.batch.store import Batch
 from recognizer.reading.values_csv import csv_writer, field_sort_key, open_csv
-from recognizer.review.actions import TO_CHECK, UNREADABLE
+from recognizer.states import State
+
+TO_CHECK, UNREADABLE = (State.TO_CHECK, State.UNREADABLE)
 
 __all__ = ["ExportResult", "checked_table", "export_checked", "unchecked_message"]
 
@@ -58,18 +63,12 @@ def unchecked_message(count: int) -> str:
 
 def checked_table(batch: Batch, *, audit: bool = False, allow_unchecked: bool = False) -> tuple[list[str], list[list[str]]]:
     """Header and rows of the checked CSV (all cells are strings)."""
-    fields = batch.rows(
-        """
-        SELECT f.page_id, f.name, f.value, f.typed, f.state, f.position, p.template,
-               (SELECT MIN(d.confidence) FROM digits d WHERE d.field_id = f.id AND NOT d.blank) AS lowest
-        FROM fields f JOIN pages p ON p.id = f.page_id
-        """
-    )
-    by_page: dict[int, dict[str, object]] = defaultdict(dict)
+    fields = checked_fields(batch)
+    by_page: dict[int, dict[str, CheckedField]] = defaultdict(dict)
     for f in fields:
-        by_page[f["page_id"]][f["name"]] = f
-    templated = any(f["template"] is not None for f in fields)
-    names = sorted({f["name"] for f in fields}, key=lambda n: _column_order(n, fields))
+        by_page[f.page_id][f.name] = f
+    templated = any(f.template is not None for f in fields)
+    names = sorted({f.name for f in fields}, key=lambda n: _column_order(n, fields))
     header = ["file", "page", *(["template"] if templated else []), *names]
     if allow_unchecked:
         header.append("unchecked_fields")
@@ -77,36 +76,33 @@ def checked_table(batch: Batch, *, audit: bool = False, allow_unchecked: bool = 
         header += [f"{n}_{what}" for n in names for what in ("state", "lowest_confidence")]
     header.append("problem")
     rows = []
-    for page in batch.rows(
-        "SELECT p.id, p.page, p.problem, p.template, fl.path FROM pages p JOIN files fl ON fl.id = p.file_id "
-        "ORDER BY fl.id, p.page"
-    ):
-        own = by_page.get(page["id"], {})
-        row = [page["path"], "" if page["page"] is None else str(page["page"])]
+    for page in stored_pages(batch):
+        own = by_page.get(page.page_id, {})
+        row = [page.file, "" if page.page is None else str(page.page)]
         if templated:
-            row.append(page["template"] or "")
+            row.append(page.template or "")
         row += [_value(own.get(n)) for n in names]
         if allow_unchecked:
-            row.append(" ".join(n for n in names if n in own and own[n]["state"] == TO_CHECK))
+            row.append(" ".join(n for n in names if n in own and own[n].state == TO_CHECK))
         if audit:
             for n in names:
                 f = own.get(n)
-                row += ["", ""] if f is None else [f["state"], "" if f["lowest"] is None else f"{f['lowest']:.4f}"]
-        row.append(page["problem"] or "")
+                row += ["", ""] if f is None else [f.state, "" if f.lowest is None else f"{f.lowest:.4f}"]
+        row.append(page.problem or "")
         rows.append(row)
     return header, rows
 
 
-def _column_order(name: str, fields) -> tuple:
+def _column_order(name: str, fields: Sequence[CheckedField]) -> tuple:
     """Template fields first, by their place in the template; then the others, ``f2`` before ``f10``."""
-    places = [f["position"] for f in fields if f["name"] == name and f["template"] is not None]
+    places = [f.position for f in fields if f.name == name and f.template is not None]
     return (0, min(places), "") if places else (1, *field_sort_key(name))
 
 
-def _value(f) -> str:
-    if f is None or f["state"] == UNREADABLE:
+def _value(f: CheckedField | None) -> str:
+    if f is None or f.state == UNREADABLE:
         return ""
-    return f["value"] if f["typed"] is None else f["typed"]
+    return f.value if f.typed is None else f.typed
 
 
 def export_checked(
@@ -121,7 +117,7 @@ def export_checked(
         ``allow_unchecked`` is False.
     """
     out = Path(out)
-    unchecked = int(batch.rows("SELECT COUNT(*) FROM fields WHERE state = ?", (TO_CHECK,))[0][0])
+    unchecked = count_fields(batch, TO_CHECK)
     if unchecked and not allow_unchecked:
         return ExportResult(out, unchecked=unchecked, problem=unchecked_message(unchecked))
     header, rows = checked_table(batch, audit=audit, allow_unchecked=allow_unchecked)

@@ -290,12 +290,16 @@ def _ink_path(canvas: np.ndarray, path: np.ndarray, width: float,
         cv2.circle(canvas, (int(round(x)), int(round(y))), int(round(r)), 255, -1, cv2.LINE_8)
 
 
-JUNK_KINDS = ("dot", "dash", "smudge")
+STRAY_MARK_KINDS = ("dot", "dash", "smudge")
 """Stray marks that leave a box blank: a pen dot, a short dash, a faint smudge."""
 
 
-def draw_junk(*, rng: np.random.Generator, size: int = 64, kind: str | None = None) -> np.ndarray:
+def draw_stray_mark(*, rng: np.random.Generator, size: int = 64, kind: str | None = None) -> np.ndarray:
     """Draw a small stray mark somewhere in a box-sized image.
+
+    Written into boxes of demo forms that must still read as empty.  Not to be
+    confused with the not-a-digit marks the model is trained on
+    (:func:`recognizer.digits.marks.not_digit_marks`).
 
     Parameters
     ----------
@@ -303,7 +307,7 @@ def draw_junk(*, rng: np.random.Generator, size: int = 64, kind: str | None = No
     size : int
         Side of the square output, standing for a whole box.
     kind : str, optional
-        One of :data:`JUNK_KINDS`; random if omitted.
+        One of :data:`STRAY_MARK_KINDS`; random if omitted.
 
     Returns
     -------
@@ -311,9 +315,9 @@ def draw_junk(*, rng: np.random.Generator, size: int = 64, kind: str | None = No
         (size, size) uint8, ink = 255 on 0.  The mark covers well under 2 %
         of the image: a box holding only such a mark counts as empty.
     """
-    kind = kind or str(rng.choice(JUNK_KINDS))
-    if kind not in JUNK_KINDS:
-        raise ValueError(f"unknown junk kind {kind!r}; expected one of {JUNK_KINDS}")
+    kind = kind or str(rng.choice(STRAY_MARK_KINDS))
+    if kind not in STRAY_MARK_KINDS:
+        raise ValueError(f"unknown stray mark kind {kind!r}; expected one of {STRAY_MARK_KINDS}")
     big = size * _OVERSAMPLE
     canvas = np.zeros((big, big), np.uint8)
     centre = rng.uniform(0.15, 0.85, 2) * big

@@ -11,7 +11,8 @@ os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")  # before anything imports
 
 import pytest  # noqa: E402
 
-from recognizer.batch.store import Batch, ingest_scans  # noqa: E402
+from recognizer.batch import Batch  # noqa: E402
+from recognizer.ingest import ingest_scans  # noqa: E402
 from recognizer.scans.files import list_scans  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[2]

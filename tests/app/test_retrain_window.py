@@ -13,7 +13,7 @@ import pytest
 from recognizer.batch.queries import page_summaries
 from recognizer.digits.model import load_model
 from recognizer.digits.retrain import MIN_SAMPLES, RetrainSettings
-from recognizer.review.actions import CONFIRMED, CORRECTED, set_field
+from recognizer.review import CONFIRMED, CORRECTED, set_field
 
 from .conftest import truth_values
 

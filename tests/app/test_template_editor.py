@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 from PySide6.QtCore import QPointF, QRectF, Qt
 
-from recognizer.forms.template import load_template
+from recognizer.forms.template_file import load_template
 
 ROOT = Path(__file__).resolve().parents[2]
 CARD = ROOT / "sample_forms" / "orchard_card.json"
@@ -17,7 +17,7 @@ BLANK = ROOT / "sample_forms" / "blank_card.png"
 
 @pytest.fixture
 def editor(qtbot, tmp_path):
-    from app.template_editor import TemplateEditor
+    from app.views.template_editor import TemplateEditor
 
     path = tmp_path / "card.json"
     path.write_bytes(CARD.read_bytes())
@@ -129,7 +129,7 @@ def test_click_selects_the_field_under_the_pointer(editor):
 
 
 def test_new_template_from_the_blank_card(qtbot, tmp_path):
-    from app.template_editor import TemplateEditor, draft_from_scan
+    from app.views.template_editor import TemplateEditor, draft_from_scan
 
     draft = draft_from_scan(BLANK, name="card")
     assert not isinstance(draft, str)
@@ -150,7 +150,7 @@ def test_buttons_say_their_keys_and_have_names(editor):
 
 
 def test_window_reads_with_a_template_and_shows_the_broken_rule(window, qtbot, tmp_path):
-    from recognizer.review.actions import find_field, set_field
+    from recognizer.review import find_field, set_field
 
     scans = ROOT / "sample_forms" / "scans" / "card_01.png"
     with qtbot.waitSignal(window.reading_done, timeout=60_000):

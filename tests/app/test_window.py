@@ -8,8 +8,8 @@ from pathlib import Path
 import pytest
 from PySide6.QtCore import Qt
 
-from recognizer.batch.store import Batch
-from recognizer.review.actions import CONFIRMED, CORRECTED, TO_CHECK, UNREADABLE, set_field, state_counts
+from recognizer.batch import Batch
+from recognizer.review import CONFIRMED, CORRECTED, TO_CHECK, UNREADABLE, set_field, state_counts
 
 from .conftest import SCANS, truth_values
 

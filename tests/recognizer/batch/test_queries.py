@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pytest
 
-from recognizer.batch.store import labelled_samples
+from recognizer.batch.samples import labelled_samples
 from recognizer.batch.queries import (
     digit_states,
     field_states,
@@ -19,7 +19,16 @@ from recognizer.batch.queries import (
     page_summaries,
     pages_of_fields,
 )
-from recognizer.review.actions import CONFIRMED, CORRECTED, READ, TO_CHECK, UNREADABLE, set_digit, set_field, set_threshold
+from recognizer.review import (
+    CONFIRMED,
+    CORRECTED,
+    READ,
+    TO_CHECK,
+    UNREADABLE,
+    set_digit,
+    set_field,
+    set_threshold,
+)
 from recognizer.scans.files import ScanProblem
 from tests.support.batches import CARD, add_page, digit_ids, field_id, make_page, new_batch
 

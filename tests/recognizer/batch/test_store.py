@@ -8,16 +8,10 @@ The stand-in model, hand-made pages and stand-in reader are in
 from __future__ import annotations
 
 import json
-import os
-import shutil
 import signal
 import sqlite3
-import subprocess
-import sys
-import textwrap
 import threading
 import time
-from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -25,26 +19,27 @@ import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 
 import recognizer.batch.store as batch_module
+from tests.support.processes import child_process as _child, read_lines as _read_until
+from recognizer.batch import schema
+from recognizer.batch.schema import SCHEMA_VERSION
 from tests.support.batches import (
-    CARD, DPI, FakeModel, add_page, digit_ids, fake_reader, field_id, field_row, make_page, new_batch, scan_files,
+    CARD, add_page, field_row, make_page, new_batch,
 )
 from recognizer.batch.store import (
     APPLICATION_ID,
-    SCHEMA_VERSION,
     Batch,
     BatchFileError,
     BatchInUseError,
     decode_png,
-    ingest_scans,
-    labelled_samples,
 )
 from recognizer.page.boxes import Box
-from recognizer.page.cells import cut_cell
-from recognizer.digits.model import NOT_A_DIGIT
-from recognizer.review.actions import CONFIRMED, CORRECTED, READ, TO_CHECK, confirm, set_digit, set_field, set_threshold
+from recognizer.review import (
+    READ,
+    TO_CHECK,
+    confirm,
+    set_threshold,
+)
 from recognizer.scans.files import ScanProblem
-from tests.support import REPO
-
 
 
 # --------------------------------------------------------------------------- creating and opening
@@ -134,8 +129,8 @@ def test_migrations_run_in_order_and_a_failed_step_leaves_the_file_alone(tmp_pat
         conn.execute("ALTER TABLE pages ADD COLUMN note TEXT")
         raise RuntimeError("step failed")
 
-    monkeypatch.setattr(batch_module, "MIGRATIONS", [*batch_module.MIGRATIONS, broken])
-    monkeypatch.setattr(batch_module, "SCHEMA_VERSION", SCHEMA_VERSION + 1)
+    monkeypatch.setattr(schema, "MIGRATIONS", [*schema.MIGRATIONS, broken])
+    monkeypatch.setattr(schema, "SCHEMA_VERSION", SCHEMA_VERSION + 1)
     with pytest.raises(BatchFileError, match="unchanged"):
         Batch.open(path)
     with sqlite3.connect(path) as conn:
@@ -145,7 +140,7 @@ def test_migrations_run_in_order_and_a_failed_step_leaves_the_file_alone(tmp_pat
     def add_note(conn):
         conn.execute("ALTER TABLE pages ADD COLUMN note TEXT DEFAULT 'migrated'")
 
-    monkeypatch.setattr(batch_module, "MIGRATIONS", [*batch_module.MIGRATIONS[:-1], add_note])
+    monkeypatch.setattr(schema, "MIGRATIONS", [*schema.MIGRATIONS[:-1], add_note])
     with pytest.raises(BatchFileError, match="needs upgrading"):
         Batch.open(path, read_only=True)
     with Batch.open(path) as batch:
@@ -168,13 +163,6 @@ def test_a_second_writer_in_the_same_process_is_refused(tmp_path):
                 with reader.transaction():
                     pass
     Batch.open(path).close()
-
-
-def _child(code: str, *args: str) -> subprocess.Popen:
-    """A Python child process running ``code`` with the repository importable."""
-    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(REPO), os.environ.get("PYTHONPATH", "")]))
-    return subprocess.Popen([sys.executable, "-c", textwrap.dedent(code), *args], cwd=REPO, env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
 
 
 def test_two_processes_lock_and_the_lock_dies_with_its_holder(tmp_path):
@@ -261,111 +249,6 @@ def test_observers_hear_of_committed_pages(tmp_path):
     assert [(c.kind, c.page_ids) for c in heard] == [("page", (page_id,))]
 
 
-# --------------------------------------------------------------------------- ingest
-
-
-def test_ingest_reads_new_files_once_even_under_another_name(tmp_path, monkeypatch):
-    monkeypatch.setattr(batch_module, "read_scans", fake_reader(2))
-    scans = scan_files(tmp_path / "scans", ["a.png", "b.png"])
-    copy = tmp_path / "elsewhere" / "a-copy.png"
-    copy.parent.mkdir()
-    shutil.copy(scans[0], copy)
-    seen = []
-    with Batch.create(tmp_path / "b.inkcount") as batch:
-        first = ingest_scans(batch, scans, model=FakeModel(), on_result=seen.append)
-        assert (first.files_added, first.pages_read, first.fields, first.digits) == (2, 4, 12, 28)
-        assert first.fields_to_check == 4 and first.digits_to_check == 4
-        assert [(r.source.name, r.page) for r in seen] == [("a.png", 1), ("a.png", 2), ("b.png", 1), ("b.png", 2)]
-        settings = batch.settings
-        assert (settings.threshold, settings.threshold_source, settings.model_version) == (0.9, "target", "fake-1")
-        again = ingest_scans(batch, [copy, scans[1], copy], model=FakeModel())
-        assert again.files_added == 0 and again.pages_read == 0
-        assert again.known == [(str(copy), str(scans[0])), (str(scans[1]), str(scans[1])), (str(copy), str(scans[0]))]
-        assert batch.rows("SELECT COUNT(*) FROM pages")[0][0] == 4
-
-
-def test_ingest_stops_when_asked_and_resumes_where_it_stopped(tmp_path, monkeypatch):
-    monkeypatch.setattr(batch_module, "read_scans", fake_reader(3))
-    scans = scan_files(tmp_path / "scans", ["a.tif", "b.tif"])
-    seen = []
-    with Batch.create(tmp_path / "b.inkcount") as batch:
-        first = ingest_scans(batch, scans, model=FakeModel(), on_result=seen.append,
-                             should_stop=lambda: len(seen) == 4)
-        assert first.stopped and first.pages_read == 4
-        assert [r["complete"] for r in batch.rows("SELECT complete FROM files ORDER BY id")] == [1, 0]
-        second = ingest_scans(batch, scans, model=FakeModel(), on_result=seen.append)
-        assert not second.stopped and second.files_added == 0 and second.pages_read == 2
-        assert [(r.source.name, r.page) for r in seen[4:]] == [("b.tif", 2), ("b.tif", 3)]
-        pages = batch.rows("SELECT fl.path, p.page FROM pages p JOIN files fl ON fl.id = p.file_id ORDER BY p.id")
-        assert [(Path(r[0]).name, r[1]) for r in pages] == [("a.tif", 1), ("a.tif", 2), ("a.tif", 3),
-                                                            ("b.tif", 1), ("b.tif", 2), ("b.tif", 3)]
-        assert [r["complete"] for r in batch.rows("SELECT complete FROM files")] == [1, 1]
-
-
-def test_ingest_stores_problems_of_listing_hashing_and_reading(tmp_path, monkeypatch):
-    monkeypatch.setattr(batch_module, "read_scans", fake_reader(1))
-    good, bad = scan_files(tmp_path / "scans", ["a.png", "b.bad"])
-    missing = tmp_path / "scans" / "gone.png"
-    listed = ScanProblem(tmp_path / "notes.txt", None, "not a scan file type")
-    with Batch.create(tmp_path / "b.inkcount") as batch:
-        summary = ingest_scans(batch, [good, bad, missing], model=FakeModel(), problems=[listed])
-        assert summary.pages_read == 1
-        assert [(p.source.name, p.page) for p in summary.problems] == [("notes.txt", None), ("gone.png", None),
-                                                                     ("b.bad", None)]
-        rows = batch.rows("SELECT fl.path, p.page, p.problem FROM pages p JOIN files fl ON fl.id = p.file_id "
-                          "WHERE p.problem IS NOT NULL ORDER BY p.id")
-        assert [Path(r[0]).name for r in rows] == ["notes.txt", "gone.png", "b.bad"]
-        assert "cannot read the file" in rows[1][2]
-        # a file that could not be read is tried again, and its old problem replaced
-        missing.write_bytes(b"now here")
-        again = ingest_scans(batch, [good, bad, missing], model=FakeModel())
-        assert again.pages_read == 1 and again.problems == []
-        assert batch.rows("SELECT COUNT(*) FROM pages WHERE problem LIKE 'cannot read%'")[0][0] == 0
-
-
-def test_ingest_refuses_a_loaded_model_with_worker_processes(tmp_path):
-    with Batch.create(tmp_path / "b.inkcount") as batch:
-        with pytest.raises(ValueError, match="workers=1"):
-            ingest_scans(batch, [], model=FakeModel(), workers=2)
-
-
-# --------------------------------------------------------------------------- labelled samples
-
-
-def test_labelled_samples_are_the_boxes_people_handled(tmp_path):
-    with new_batch(tmp_path / "b.inkcount") as batch:
-        add_page(batch, "a.png")
-        f01, f02, f03 = (field_id(batch, "a.png", 1, n) for n in ("f01", "f02", "f03"))
-        set_field(batch, f02, "47", reviewer="ada")           # box 1 corrected to 4, box 2 confirmed 7
-        set_digit(batch, digit_ids(batch, f01)[0], "", reviewer="ben")  # the "0" is a stray mark
-        set_field(batch, f03, "123", reviewer="ada")           # three digits into two boxes: no labels
-        crops, cells, labels, refs = labelled_samples(batch)
-        assert list(labels) == [NOT_A_DIGIT, 4, 7]
-        assert [(r.field, r.box, r.state, r.reviewer) for r in refs] == [
-            ("f01", 0, CORRECTED, "ben"), ("f02", 1, CORRECTED, "ada"), ("f02", 2, CONFIRMED, "ada")]
-        for crop, ref in zip(crops, refs):
-            assert_array_equal(crop, batch.digit_crop(ref.digit_id))
-        # hand-made crops are the inner box only, not the reader's crop with its margin: no cell
-        assert cells == [None, None, None]
-
-
-def test_labelled_samples_cut_the_cells_again_as_the_reader_does(tmp_path):
-    page = make_page("a.png", 1, CARD)
-    f02 = page.fields[1]  # boxes: empty, "1", "7"
-    stored = [replace(d, crop=cut_cell(page.image, box, dpi=DPI).crop) if d.box != 2 else d
-              for d, box in zip(f02.digits, f02.boxes)]
-    page.fields[1] = replace(f02, digits=stored)
-    with new_batch(tmp_path / "b.inkcount") as batch:
-        batch.add_result(batch.add_file("a.png", "sha-a", 1), page, model_version="fake-1")
-        set_field(batch, field_id(batch, "a.png", 1, "f02"), "17", reviewer="ada")
-        _crops, cells, labels, refs = labelled_samples(batch)
-    assert list(labels) == [1, 7] and [r.box for r in refs] == [1, 2]
-    expected = cut_cell(page.image, f02.boxes[1], dpi=DPI).mnist
-    assert cells[0].shape == (28, 28) and cells[0].dtype == np.float32
-    assert_array_equal(cells[0], expected)
-    assert cells[1] is None  # its stored crop is not the reader's: the box and the page disagree
-
-
 def test_two_threads_share_a_batch_without_seeing_half_a_transaction(tmp_path):
     with new_batch(tmp_path / "b.inkcount") as batch:
         stop = threading.Event()
@@ -388,52 +271,6 @@ def test_two_threads_share_a_batch_without_seeing_half_a_transaction(tmp_path):
 
 
 # --------------------------------------------------------------------------- kill -9
-
-
-def _read_until(proc: subprocess.Popen, n: int) -> list[str]:
-    lines = []
-    while len(lines) < n:
-        line = proc.stdout.readline()
-        if not line:
-            raise AssertionError(f"child ended early: {proc.stderr.read()}")
-        lines.append(line.strip())
-    return lines
-
-
-def test_kill_during_ingest_loses_at_most_the_page_being_read(tmp_path):
-    scans = scan_files(tmp_path / "scans", [f"s{i:02d}.png" for i in range(6)])
-    path = tmp_path / "b.inkcount"
-    code = """
-        import sys
-        import recognizer.batch.store as b
-        from tests.support.batches import FakeModel, fake_reader
-        b.read_scans = fake_reader(10, delay=0.01)
-        batch = b.Batch.open(sys.argv[1], create=True)
-        b.ingest_scans(batch, sys.argv[2:], model=FakeModel(),
-                       on_result=lambda r: print(f"{r.source.name}:{r.page}", flush=True))
-        print("finished", flush=True)
-        """
-    child = _child(code, str(path), *map(str, scans))
-    done = _read_until(child, 17)
-    child.send_signal(signal.SIGKILL)
-    child.wait()
-    assert child.returncode == -signal.SIGKILL and "finished" not in done
-    with Batch.open(path) as batch:
-        assert batch.integrity_check() == []
-        stored = {f"{Path(r[0]).name}:{r[1]}" for r in
-                  batch.rows("SELECT fl.path, p.page FROM pages p JOIN files fl ON fl.id = p.file_id")}
-        assert set(done) <= stored and len(stored) <= len(done) + 1
-        # every stored page is whole: 3 fields, 8 boxes
-        counts = batch.rows("SELECT COUNT(DISTINCT f.id), COUNT(d.id) FROM pages p JOIN fields f ON f.page_id = p.id "
-                            "JOIN digits d ON d.field_id = f.id GROUP BY p.id")
-        assert {tuple(c) for c in counts} == {(3, 8)}
-    # running it again completes the batch, reading only what is missing
-    rerun = _child(code, str(path), *map(str, scans))
-    out, err = rerun.communicate(timeout=60)
-    assert rerun.returncode == 0, err
-    assert len(out.split()) - 1 == 60 - len(stored)
-    with Batch.open(path, read_only=True) as batch:
-        assert batch.rows("SELECT COUNT(*) FROM pages")[0][0] == 60
 
 
 def test_kill_during_review_keeps_every_action_completed(tmp_path):

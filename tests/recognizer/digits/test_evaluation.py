@@ -52,6 +52,21 @@ def test_confusion_matrix_literal() -> None:
     assert (m[0, 0], m[0, 1], m[1, 1], m[10, 10]) == (1, 1, 1, 1)
 
 
+def test_confusion_matrix_counts_like_the_former_hand_count() -> None:
+    """scikit-learn's matrix equals the former ``np.add.at`` count: every class kept, empty input zeros."""
+    true = np.array([0, 0, 1, 10, 3, 3, 9, 7, 7, 7])
+    pred = np.array([0, 1, 1, 10, 10, 3, 2, 7, 1, 10])
+    expected = np.zeros((11, 11), np.int64)
+    np.add.at(expected, (true, pred), 1)
+    m = confusion_matrix(true, pred)
+    assert m.dtype == np.int64
+    assert_array_equal(m, expected)
+    ten = np.zeros((10, 10), np.int64)
+    np.add.at(ten, (true % 10, pred % 10), 1)
+    assert_array_equal(confusion_matrix(true % 10, pred % 10, n_classes=10), ten)
+    assert_array_equal(confusion_matrix(np.zeros(0, np.int64), np.zeros(0, np.int64)), np.zeros((11, 11)))
+
+
 def test_write_report(tmp_path) -> None:
     fig = {"ece_15": 0.01, "accuracy": 0.8, "confidence": CONF.tolist(), "correct": CORRECT.tolist()}
     written = write_report(fig, tmp_path / "rep")

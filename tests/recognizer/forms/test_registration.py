@@ -7,8 +7,9 @@ import pytest
 
 from recognizer.synth import forms as fg
 from recognizer.page.boxes import find_fields
-from recognizer.forms.registration import MIN_SCORE, Registrar, draft_template, match_templates
-from recognizer.forms.template import load_template
+from recognizer.forms.registration import MIN_SCORE, Registrar, match_templates
+from recognizer.forms.drafting import draft_template
+from recognizer.forms.template_file import load_template
 from tests.support import REPO
 
 TEMPLATE = REPO / "sample_forms" / "orchard_card.json"

@@ -13,9 +13,9 @@ from recognizer.synth.handwriting import Writer
 from recognizer.digits.model import load_model
 from recognizer.reading.stream import ReadSettings, read_scans
 from recognizer.reading.page import PageReader
-from recognizer.review.actions import TO_CHECK
+from recognizer.review import TO_CHECK
 from recognizer.scans.files import Page
-from recognizer.forms.template import load_template
+from recognizer.forms.template_file import load_template
 from tests.support import REPO
 
 SAMPLES = REPO / "sample_forms"

@@ -63,6 +63,8 @@ def test_values_table_shares_one_header_and_keeps_zeros(tmp_path):
     fields[4] = _field("f05", ["3"], conf=0.5)  # doubtful -> to check
     table.add_page(_page('cards/b, "odd".pdf', 3, fields), threshold=0.9)
     table.add_problem(ScanProblem(Path("cards/broken.jpg"), None, "the file is truncated"))
+    same_boxes = [_field(f.name, ["2"] * len(f.boxes)) for f in fields]  # b's layout, other values
+    table.add_page(_page("cards/c.png", 1, same_boxes), threshold=0.9)
     out = tmp_path / "values.csv"
     table.write(out)
     rows = _read_csv(out)
@@ -73,6 +75,8 @@ def test_values_table_shares_one_header_and_keeps_zeros(tmp_path):
     assert rows[2][-2] == "f03 f05"
     assert rows[3] == ["cards/broken.jpg", ""] + [""] * 11 + ["", "the file is truncated"]
     assert '"cards/b, ""odd"".pdf"' in out.read_text(encoding="utf-8")
+    assert rows[1][-2] == "f01 f02"  # a.png has another layout than most pages: all its fields
+    assert rows[4][-2] == ""
 
 
 def test_field_sort_key_orders_numbers_numerically():

@@ -9,21 +9,19 @@ import pytest
 
 from recognizer.batch.store import Batch
 from recognizer.cli.batch import parse_ref
-from recognizer.review.actions import (
+from recognizer.review import (
     CONFIRMED,
     CORRECTED,
     READ,
     TO_CHECK,
     UNREADABLE,
-    ReviewError,
-    ReviewQueue,
     actions,
-    combine_states,
     confirm,
-    field_state,
     find_field,
     mark_unreadable,
     reread_unchecked,
+    ReviewError,
+    ReviewQueue,
     set_digit,
     set_field,
     set_target_error,
@@ -54,38 +52,7 @@ def states(batch, fid):
     return [r[0] for r in batch.rows("SELECT state FROM digits WHERE field_id = ? ORDER BY box", (fid,))]
 
 
-# --------------------------------------------------------------------------- rules
-
-
-@pytest.mark.parametrize(
-    "digits, flagged, resolution, expected",
-    [
-        ([READ, READ], False, None, READ),
-        ([READ, TO_CHECK], False, None, TO_CHECK),
-        ([READ, READ], True, None, TO_CHECK),            # gap, page warnings or layout
-        ([READ, READ], True, CONFIRMED, CONFIRMED),      # ... resolved by a field action
-        ([CONFIRMED, TO_CHECK], True, CONFIRMED, TO_CHECK),
-        ([UNREADABLE, TO_CHECK], False, None, TO_CHECK),
-        ([UNREADABLE, CORRECTED], False, None, UNREADABLE),
-        ([READ, READ], False, UNREADABLE, UNREADABLE),
-        ([CONFIRMED, CORRECTED], False, None, CORRECTED),
-        ([CONFIRMED, READ], False, None, CONFIRMED),
-        ([CORRECTED], True, CORRECTED, CORRECTED),
-        ([], False, None, READ),
-        ([], True, None, TO_CHECK),
-    ],
-)
-def test_field_state_rule(digits, flagged, resolution, expected):
-    assert field_state(digits, flagged=flagged, resolution=resolution) == expected
-
-
-@pytest.mark.parametrize(
-    "fields, expected",
-    [([READ, CONFIRMED], CONFIRMED), ([CORRECTED, TO_CHECK], TO_CHECK), ([UNREADABLE, CORRECTED], UNREADABLE),
-     ([], READ)],
-)
-def test_page_state_combines_fields(fields, expected):
-    assert combine_states(fields) == expected
+# --------------------------------------------------------------------------- stored flags
 
 
 def test_digits_are_flagged_below_the_threshold_or_as_not_a_digit(batch):

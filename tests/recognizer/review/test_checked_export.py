@@ -12,10 +12,11 @@ import pytest
 from numpy.testing import assert_allclose
 
 from recognizer.synth import forms as formgen
-from recognizer.batch.store import Batch, ingest_scans
+from recognizer.batch.store import Batch
+from recognizer.ingest import ingest_scans
 from recognizer.review.checked_export import checked_table, export_checked
 from recognizer.digits.model import load_model
-from recognizer.review.actions import ReviewQueue, confirm, mark_unreadable, reread_unchecked, set_field
+from recognizer.review import confirm, mark_unreadable, reread_unchecked, ReviewQueue, set_field
 from recognizer.scans.files import ScanProblem
 from tests.support.batches import CARD, add_page, field_id, new_batch
 from tests.support.cli import run

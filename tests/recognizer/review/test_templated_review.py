@@ -10,14 +10,25 @@ from pathlib import Path
 
 import pytest
 
+from recognizer.batch import schema as batch_schema
 from recognizer.batch import store as batch_module
-from recognizer.batch.store import Batch, ingest_scans
+from recognizer.batch.store import Batch
+from recognizer.ingest import ingest_scans
 from recognizer.review.checked_export import export_checked
 from recognizer.cli.main import main
 from recognizer.reading.stream import ReadSettings
-from recognizer.review.actions import CONFIRMED, CORRECTED, TO_CHECK, ReviewQueue, confirm, find_field, set_field, undo
+from recognizer.review import (
+    CONFIRMED,
+    CORRECTED,
+    TO_CHECK,
+    confirm,
+    find_field,
+    ReviewQueue,
+    set_field,
+    undo,
+)
 from recognizer.scans.files import list_scans
-from recognizer.forms.template import load_template
+from recognizer.forms.template_file import load_template
 from tests.support import REPO
 
 SAMPLES = REPO / "sample_forms"
@@ -78,7 +89,7 @@ def test_batch_keeps_the_template(batch):
 
 
 def test_a_changed_template_under_the_same_version_is_refused(batch):
-    from recognizer.forms.template import rename_field
+    from recognizer.forms.editing import rename_field
 
     changed = rename_field(load_template(TEMPLATE), "row_number", "tree_row")
     with pytest.raises(batch_module.BatchFileError, match="new version"):
@@ -170,7 +181,7 @@ def test_version_2_file_is_upgraded_to_3(read_batch, tmp_path):
     conn.executescript("DROP TABLE templates; ALTER TABLE fields DROP COLUMN typed; PRAGMA user_version = 2;")
     conn.close()
     with Batch.open(path) as b:
-        assert b.rows("PRAGMA user_version")[0][0] == batch_module.SCHEMA_VERSION == 3
+        assert b.rows("PRAGMA user_version")[0][0] == batch_schema.SCHEMA_VERSION == 3
         assert b.templates() == {}
         assert {r[0] for r in b.rows("SELECT typed FROM fields")} == {None}
         # without the template kept, the export gives the digits and review still works

@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_array_equal
 
-from recognizer.synth.handwriting import JUNK_KINDS, Writer, draw_junk
+from recognizer.synth.handwriting import STRAY_MARK_KINDS, Writer, draw_stray_mark
 
 WRITERS = {
     "default": Writer(),
@@ -129,15 +129,15 @@ def test_distinctive_writer_uses_its_allographs():
     assert crossed > uncrossed + 0.1
 
 
-@pytest.mark.parametrize("kind", JUNK_KINDS)
-def test_junk_marks_are_small(kind):
+@pytest.mark.parametrize("kind", STRAY_MARK_KINDS)
+def test_stray_marks_are_small(kind):
     rng = np.random.default_rng(2)
     for _ in range(20):
-        mark = draw_junk(rng=rng, size=64, kind=kind)
+        mark = draw_stray_mark(rng=rng, size=64, kind=kind)
         assert mark.shape == (64, 64) and mark.max() > 0
         assert (mark > 64).mean() < 0.02
 
 
-def test_junk_rejects_unknown_kind():
+def test_stray_mark_rejects_unknown_kind():
     with pytest.raises(ValueError):
-        draw_junk(rng=np.random.default_rng(0), kind="doodle")
+        draw_stray_mark(rng=np.random.default_rng(0), kind="doodle")

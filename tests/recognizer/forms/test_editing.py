@@ -7,16 +7,11 @@ import numpy as np
 import pytest
 
 from recognizer.page.boxes import Box
-from recognizer.forms.template import (
-    Reference,
-    SumRule,
-    Template,
-    TemplateError,
-    TemplateField,
+from recognizer.forms.template import Reference, SumRule, Template, TemplateError, TemplateField
+from recognizer.forms.editing import (
     add_field,
     delete_field,
     join_fields,
-    load_template,
     move_field,
     parse_sum,
     rename_field,
@@ -26,6 +21,7 @@ from recognizer.forms.template import (
     sum_text,
     update_field,
 )
+from recognizer.forms.template_file import load_template
 from tests.support import REPO
 
 CARD = REPO / "sample_forms" / "orchard_card.json"

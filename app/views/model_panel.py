@@ -12,7 +12,7 @@ from PySide6.QtCore import QPointF, QRectF, Qt
 from PySide6.QtGui import QColor, QFont, QPainter, QPainterPath, QPen
 from PySide6.QtWidgets import QFormLayout, QLabel, QPushButton, QSizePolicy, QVBoxLayout, QWidget
 
-from recognizer.batch.store import BatchSettings
+from recognizer.batch import BatchSettings
 from recognizer.digits.model import DigitModel
 
 __all__ = ["ModelPanel", "RejectCurve", "reject_points", "retraining_in_words", "RETRAIN_TIP"]

@@ -9,7 +9,9 @@ unchecked digits are read again; corrected and confirmed values stay). A
 refused model is explained and offers nothing to save. Retraining cannot be
 stopped half-way (the library has no stopping point), so the dialog cannot be
 closed while it runs; it is window-modal, so no review action lands in the
-middle of a re-read.
+middle of a re-read. Its workers are started by ``start_job`` (the window
+passes :meth:`app.controller.BatchController.start_job`, so the batch is not
+closed under them).
 """
 
 from __future__ import annotations
@@ -17,15 +19,17 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
-from PySide6.QtCore import QThread, Signal
+from collections.abc import Callable
+
+from PySide6.QtCore import Signal
 from PySide6.QtWidgets import QDialog, QDialogButtonBox, QFileDialog, QLabel, QProgressBar, QPushButton, QVBoxLayout
 
-from recognizer.batch.store import Batch
+from recognizer.batch import Batch
 from recognizer.digits.model import DigitModel
 from recognizer.digits.retrain import RetrainResult, RetrainSettings
-from recognizer.review.actions import RereadSummary
+from recognizer.review import RereadSummary
 
-from .workers import RereadWorker, RetrainWorker, start_worker
+from ..workers import Job, RereadWorker, RetrainWorker, Worker
 
 __all__ = ["RetrainDialog", "result_in_words", "default_model_path"]
 
@@ -86,16 +90,16 @@ class RetrainDialog(QDialog):
     model_used = Signal(object, object, object)
 
     def __init__(self, batch: Batch, model: DigitModel, *, settings: RetrainSettings = RetrainSettings(),
-                 parent=None) -> None:
+                 start_job: Callable[[Worker], Job] | None = None, parent=None) -> None:
         super().__init__(parent)
+        self._start_job = start_job or (lambda worker: Job(worker, self))
         self.setWindowTitle("Retrain from this batch's corrections")
         self.setMinimumWidth(560)
         self.batch, self.model = batch, model
         self.result: RetrainResult | None = None
         self.problem: str | None = None
         self.saved_path: Path | None = None
-        self.thread: QThread | None = None
-        self.worker: RetrainWorker | RereadWorker | None = None
+        self.job: Job | None = None
         self.summary: RereadSummary | None = None
         self._then = lambda: None
         layout = QVBoxLayout(self)
@@ -135,23 +139,23 @@ class RetrainDialog(QDialog):
 
     @property
     def running(self) -> bool:
-        return self.thread is not None
+        return self.job is not None
 
     def wait(self) -> None:
         """Block until the running worker (if any) has ended."""
-        if self.thread is not None:
-            self.thread.wait()
+        if self.job is not None:
+            self.job.wait()
 
     def _run(self, worker: RetrainWorker | RereadWorker, then) -> None:
         """Run ``worker`` in its thread; call ``then()`` once the thread has stopped."""
-        self.worker, self._then = worker, then
+        self._then = then
         self.busy.show()
         self.close_button.setEnabled(False)
-        self.thread = start_worker(worker, self)
-        self.thread.finished.connect(self._on_thread_finished)
+        self.job = self._start_job(worker)
+        self.job.ended.connect(self._on_job_ended)
 
-    def _on_thread_finished(self) -> None:
-        self.thread = self.worker = None
+    def _on_job_ended(self, _job: Job) -> None:
+        self.job = None
         self.busy.hide()
         self.close_button.setEnabled(True)
         self._then()

@@ -18,7 +18,7 @@ from PySide6.QtWidgets import (
     QGraphicsView,
 )
 
-from .look import STATE_LINES, STATE_MARKS, STATE_WORDS, colour
+from ..look import STATE_LINES, STATE_MARKS, STATE_WORDS, colour
 
 __all__ = ["PageView"]
 

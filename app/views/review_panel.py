@@ -17,7 +17,7 @@ Keys (the panel has the focus)::
     PgDn/PgUp   next / previous field without saving
     Esc         forget what was typed
 
-Every action goes through :mod:`recognizer.review.actions` and is committed at once.
+Every action goes through :mod:`recognizer.review` and is committed at once.
 The next fields' crops and page strips are prepared while the clerk looks at
 the current one, so moving on never waits for the disk.
 """
@@ -38,12 +38,22 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from recognizer.batch.store import Batch, Change
+from recognizer.batch import Batch, Change
 from recognizer.batch.queries import FieldView, field_states, load_field
-from recognizer.review.actions import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, mark_unreadable, set_field, undo
+from recognizer.review import (
+    TO_CHECK,
+    ReviewError,
+    ReviewItem,
+    ReviewQueue,
+    confirm,
+    mark_unreadable,
+    set_field,
+    undo,
+)
+from recognizer.states import NOT_A_DIGIT_MARK, reasons_in_words
 
-from .batch_access import ImageCache
-from .look import CAUTION, STATE_MARKS, STATE_WORDS, reasons_in_words
+from ..batch_access import ImageCache
+from ..look import STATE_MARKS, STATE_WORDS, caution_label
 
 __all__ = ["ReviewPanel", "BoxTile", "ORDER_CHOICES", "KEY_HELP"]
 
@@ -213,12 +223,7 @@ class ReviewPanel(QFrame):
         keys.setStyleSheet("color: #505050;")
         layout.addWidget(keys)
         layout.addStretch(1)
-        caution = QLabel("⚠ " + CAUTION)
-        caution.setWordWrap(True)
-        caution.setAccessibleName("Caution")
-        caution.setStyleSheet("QLabel { background: #FFF4D6; color: #4A3B00; border: 1px solid #E69F00;"
-                              " padding: 6px; }")
-        layout.addWidget(caution)
+        layout.addWidget(caution_label())
 
     # ---- batch and queue
 
@@ -428,7 +433,7 @@ class ReviewPanel(QFrame):
         out = []
         for t, d in zip(self.edit.typed, self.view.slots):
             v = t if t is not None else self._shown_value(self.view, d)
-            out.append("" if v in ("?", None) else v)
+            out.append("" if v in (NOT_A_DIGIT_MARK, None) else v)
         return "".join(out)
 
     def type_digit(self, ch: str) -> None:

@@ -6,7 +6,7 @@ boxes drawn; the clerk selects a field (click it, or pick it in the list),
 names it, sets its type and rules, removes shapes that are not digit fields,
 draws a new run of boxes, moves a field, splits a run in two or joins two
 neighbouring runs, and saves the file. Every change is made by the library's
-editing steps (:func:`recognizer.forms.template.update_field`, ``split_field``,
+editing steps (:func:`recognizer.forms.editing.update_field`, ``split_field``,
 ``join_fields`` ...), which refuse what would not hold together; the message
 is shown under the page.
 
@@ -46,29 +46,24 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from recognizer.page.boxes import find_fields
 from recognizer.forms.checkdigits import CHECK_SYSTEMS
-from recognizer.forms.registration import draft_template
-from recognizer.scans.files import ScanProblem, load_page
-from recognizer.forms.template import (
-    DATE_ORDERS,
-    FIELD_TYPES,
-    Template,
-    TemplateError,
+from recognizer.forms.drafting import draft_from_scan as draft_scan
+from recognizer.forms.editing import (
     add_field,
     delete_field,
     join_fields,
     move_field,
     parse_sum,
     run_boxes,
-    save_template,
     set_sums,
     split_field,
     sum_text,
     update_field,
 )
+from recognizer.forms.template import DATE_ORDERS, FIELD_TYPES, Template, TemplateError
+from recognizer.forms.template_file import save_template
 
-from .batch_access import to_qimage
+from ..batch_access import to_qimage
 
 __all__ = ["TemplateEditor", "draft_from_scan", "TYPE_WORDS"]
 
@@ -85,14 +80,10 @@ _FIELD = QColor("#0072B2")
 
 
 def draft_from_scan(path: str | Path, *, name: str | None = None) -> Template | str:
-    """A draft template from the first page of a form scan, or the reason there is none."""
-    page = load_page(path, 1)
-    if isinstance(page, ScanProblem):
-        return f"{Path(path).name}: {page.reason}"
-    finding = find_fields(page.image, dpi=page.dpi)
-    if not finding:
-        return f"{Path(path).name}: {finding.problem}"
-    return draft_template(finding, name=name or Path(path).stem)
+    """A draft template from the first page of a form scan (:func:`recognizer.forms.drafting.draft_from_scan`),
+    or the reason there is none, after the scan's file name."""
+    draft = draft_scan(path, name=name)
+    return draft.template if draft else f"{Path(path).name}: {draft.problem}"
 
 
 class _PageCanvas(QGraphicsView):

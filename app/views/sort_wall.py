@@ -10,7 +10,7 @@ Select crops with the mouse (click, Shift+click, Ctrl+click) or the keyboard
     Ctrl+Enter   the reading is right for the whole group
 
 A crop handled leaves its group. Every action is one call of
-:mod:`recognizer.review.actions`, committed at once.
+:mod:`recognizer.review`, committed at once.
 """
 
 from __future__ import annotations
@@ -32,13 +32,13 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from recognizer.batch.store import Batch, Change
+from recognizer.batch import Batch, Change
 from recognizer.batch.queries import digit_states
 from recognizer.digits.model import CLASSES, NOT_A_DIGIT
-from recognizer.reading.page import UNREADABLE_MARK
-from recognizer.review.actions import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, set_digit
+from recognizer.review import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, set_digit
+from recognizer.states import NOT_A_DIGIT_MARK
 
-from .batch_access import ImageCache
+from ..batch_access import ImageCache
 
 __all__ = ["SortWall", "WALL_HELP"]
 
@@ -49,7 +49,7 @@ _DIGIT = Qt.ItemDataRole.UserRole
 
 
 def _group_of(prediction: str) -> int:
-    return NOT_A_DIGIT if prediction == UNREADABLE_MARK else int(prediction)
+    return NOT_A_DIGIT if prediction == NOT_A_DIGIT_MARK else int(prediction)
 
 
 def _group_title(group: int, n: int) -> str:

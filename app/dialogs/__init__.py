@@ -1,0 +1,12 @@
+"""The window's dialogs, one per module.
+
+* :mod:`~app.dialogs.strictness`: how strict to be (target share of wrong
+  digits or a confidence threshold), with a live count.
+* :mod:`~app.dialogs.export`: export the checked CSV.
+* :mod:`~app.dialogs.retrain`: retrain the model from the batch's corrections,
+  save it and use it for the batch.
+* :mod:`~app.dialogs.files`: the file choosers (scans, folder, batch, template,
+  a new batch's name).
+
+The form template editor, a window of its own, is in :mod:`app.views.template_editor`.
+"""

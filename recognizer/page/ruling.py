@@ -1,0 +1,324 @@
+"""The page-level steps of box finding: lighting, ink, skew, ruling lines and the regions between them.
+
+:func:`recognizer.page.boxes.find_fields` runs these steps on the page (at no
+more than 200 dpi); :mod:`recognizer.page.box_rows` then decides which of the
+regions are digit boxes. Everything here works in pixels at that working
+resolution, on ``(M, N)`` uint8 images; rectangles are :class:`Rect` in
+pixel edges.
+
+Steps
+-----
+1. *Lighting*: the paper level is estimated on a 1 mm grid (a grey closing
+   over 5 mm wipes out thin ink) and divided out, so paper is near 255.
+2. *Ink*: after a light smoothing (0.1 mm), pixels darker than the paper by
+   more than the larger of 4.5 noise deviations and 22 grey levels are ink.
+3. *Skew*: the horizontal projection profile of the ink, seen at about
+   100 dpi, is sharpest at the page's skew (sum of squared row counts,
+   searched in 0.25 degree steps over +-``max_skew_deg`` and refined in
+   0.02 degree steps); the page is rotated back about its centre, keeping
+   its size.
+4. *Lines*: an opening with a one-pixel-high kernel 35 % of ``min_box_mm``
+   long keeps straight horizontal runs, a closing joins runs less than 2 mm
+   apart; the segments at most 1.2 mm thick are the candidate lines, and
+   collinear segments less than ``min_box_mm`` apart are joined (a broken
+   line).
+5. *Regions*: for two lines between ``0.9 * min_box_mm`` and ``max_box_mm``
+   apart, a column of the band between them is a wall where ink covers 90 %
+   of its height, or 55 % reaching both lines (a broken wall); walls are
+   at most 1.2 mm thick.  The stretch between two walls is a region when
+   it is at most 70 % ink, no row of it is ink over 95 % of its width (a
+   line across: the band of a label above a field) and lines cover half of
+   its top and bottom edges.
+
+The page warnings about the lines (:func:`line_warnings`): lines fainter than
+80 grey levels below the paper.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+__all__ = [
+    "LINE_BAND_MM",
+    "Rect",
+    "estimate_skew",
+    "flatten_lighting",
+    "horizontal_lines",
+    "ink_mask",
+    "ink_step",
+    "line_warnings",
+    "regions",
+    "rotation",
+    "ruled",
+    "warp",
+]
+
+_SKEW_PX_PER_MM = 4.0      # resolution of the skew search (about 100 dpi)
+_LIGHT_PX_PER_MM = 1.0     # grid of the paper-level estimate
+_LIGHT_WINDOW_MM = 5.0     # grey closing window of the paper-level estimate
+_JOIN_MM = 2.0             # gaps between straight horizontal runs joined
+_POOL_MM = 0.3             # columns pooled when labelling line segments
+_BAND_MARGIN_MM = 0.25     # rows beside each line left out of the wall test
+_WALL_COVER = 0.9          # ink share of a column between two lines that makes a wall
+_BROKEN_WALL_COVER = 0.55  # ... or that makes a broken wall reaching both lines
+_MAX_WALL_MM = 1.2         # a wall or line is at most this thick
+_MAX_INK = 0.7             # a box region is not mostly ink
+_CROSSING = 0.95           # a region with a row this much ink has a line across it
+_LINE_FRACTION = 0.35      # opening length as a fraction of min_box_mm
+_RULED = 0.5               # share of a region's top and bottom edge that lines must cover
+LINE_BAND_MM = 0.6         # band beside a region searched for its top or bottom line
+_FAINT_LINES = 80          # median line darkness (grey levels) below this: "lines faint"
+
+
+# ---------------------------------------------------------------- lighting and ink
+
+def flatten_lighting(gray: np.ndarray, px_per_mm: float) -> np.ndarray:
+    """Divide out the paper level: (M, N) uint8 with paper near 255 everywhere."""
+    f = min(1.0, _LIGHT_PX_PER_MM / px_per_mm)
+    small = cv2.resize(gray, None, fx=f, fy=f, interpolation=cv2.INTER_AREA)
+    k = max(3, int(round(_LIGHT_WINDOW_MM * px_per_mm * f)) | 1)
+    kernel = cv2.getStructuringElement(cv2.MORPH_RECT, (k, k))
+    paper = cv2.morphologyEx(small, cv2.MORPH_CLOSE, kernel)
+    paper = cv2.blur(paper, (k, k))
+    paper = cv2.resize(paper, (gray.shape[1], gray.shape[0]), interpolation=cv2.INTER_LINEAR)
+    np.maximum(paper, 1, out=paper)
+    return cv2.divide(gray, paper, scale=255.0)
+
+
+def ink_step(flat: np.ndarray) -> tuple[float, float | None]:
+    """Paper level and the darkening that counts as ink; ``None`` for a blank page."""
+    sample = flat[::3, ::3]
+    paper = float(np.median(sample))
+    spread = 1.4826 * float(np.median(np.abs(sample.astype(np.float32) - paper)))
+    step = max(4.5 * spread, 22.0)
+    if paper - step < 10 or np.count_nonzero(sample < paper - step) < 20:
+        return paper, None
+    return paper, step
+
+
+def ink_mask(flat: np.ndarray, threshold: float, px_per_mm: float) -> np.ndarray:
+    """(M, N) uint8 ink mask (255 = ink) after a light smoothing against noise."""
+    sigma = 0.1 * px_per_mm
+    smooth = cv2.GaussianBlur(flat, (0, 0), sigma) if sigma >= 0.5 else flat
+    # uint8 values below ``threshold`` are those at or below ceil(threshold) - 1
+    _, mask = cv2.threshold(smooth, math.ceil(threshold) - 1, 255, cv2.THRESH_BINARY_INV)
+    return mask
+
+
+# ---------------------------------------------------------------- skew
+
+def estimate_skew(flat: np.ndarray, threshold: float, px_per_mm: float,
+                  max_skew_deg: float) -> float:
+    """Skew of the page in degrees (counter-clockwise as seen), from the projection profile."""
+    f = min(1.0, _SKEW_PX_PER_MM / px_per_mm)
+    small = cv2.resize(flat, None, fx=f, fy=f, interpolation=cv2.INTER_AREA)
+    ys, xs = np.nonzero(small < threshold + 0.5 * (255 - threshold))
+    if len(ys) < 20 or max_skew_deg == 0:
+        return 0.0
+    xs = xs.astype(np.float64) - small.shape[1] / 2.0
+    ys = ys.astype(np.float64) - small.shape[0] / 2.0
+
+    def sharpness(deg: float) -> float:
+        t = math.radians(deg)
+        rows = np.round(ys * math.cos(t) + xs * math.sin(t)).astype(np.int64)
+        counts = np.bincount(rows - rows.min())
+        return float(np.dot(counts, counts))
+
+    reach = max_skew_deg + 0.5
+    coarse = np.arange(-reach, reach + 1e-9, 0.25)
+    best = float(coarse[int(np.argmax([sharpness(a) for a in coarse]))])
+    fine = np.arange(best - 0.3, best + 0.3 + 1e-9, 0.02)
+    scores = np.array([sharpness(a) for a in fine])
+    top = scores >= scores.max() * (1 - 2e-3)  # the peak is flat at this resolution
+    angle = float(np.average(fine[top], weights=scores[top] - scores.min() + 1e-9))
+    return angle
+
+
+def rotation(shape: tuple[int, int], angle_deg: float) -> np.ndarray:
+    """2x3 map (pixel edges) rotating by ``angle_deg`` counter-clockwise about the image centre."""
+    height, width = shape
+    return cv2.getRotationMatrix2D((width / 2.0, height / 2.0), angle_deg, 1.0)
+
+
+def warp(image: np.ndarray, matrix: np.ndarray) -> np.ndarray:
+    """Apply ``matrix`` (pixel-edge coordinates) to ``image``, paper outside."""
+    index = matrix.copy()  # pixel-edge -> pixel-index convention for OpenCV
+    index[:, 2] += index[:, :2].sum(axis=1) * 0.5 - 0.5
+    return cv2.warpAffine(image, index, (image.shape[1], image.shape[0]),
+                          flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT,
+                          borderValue=255)
+
+
+# ---------------------------------------------------------------- lines and regions
+
+def _kernel_len(mm: float, px_per_mm: float) -> int:
+    return max(3, int(round(mm * px_per_mm)))
+
+
+def horizontal_lines(ink: np.ndarray, px_per_mm: float, min_box_mm: float) -> np.ndarray:
+    """(M, N) uint8 mask (255) of straight horizontal runs of ink, small gaps joined."""
+    run = np.ones((1, _kernel_len(_LINE_FRACTION * min_box_mm, px_per_mm)), np.uint8)
+    join = np.ones((1, _kernel_len(_JOIN_MM, px_per_mm)), np.uint8)
+    return cv2.morphologyEx(cv2.morphologyEx(ink, cv2.MORPH_OPEN, run), cv2.MORPH_CLOSE, join)
+
+
+@dataclass(frozen=True)
+class Rect:
+    """A rectangle in pixel edges at the working resolution (a line, a region, a box)."""
+
+    x0: int
+    y0: int
+    x1: int
+    y1: int
+
+    @property
+    def w(self) -> int:
+        return self.x1 - self.x0
+
+    @property
+    def h(self) -> int:
+        return self.y1 - self.y0
+
+
+def _segments(lines: np.ndarray, step: int) -> list[Rect]:
+    """Horizontal line segments: the rows of each run component covered over half its length.
+
+    Components are labelled on the mask pooled over ``step`` columns (lines
+    run along the rows; x ends are known to ``step`` pixels).  Handwriting stuck
+    to a line adds rows covered only in part, which are left out.
+    """
+    height, width = lines.shape
+    pooled = cv2.resize(lines, (max(1, width // step), height), interpolation=cv2.INTER_AREA)
+    pooled = (pooled > 0).astype(np.uint8)
+    scale = width / pooled.shape[1]
+    _, labels, stats, _ = cv2.connectedComponentsWithStats(pooled, connectivity=8)
+    out = []
+    for i, (x, y, w, h, _area) in enumerate(stats[1:], start=1):
+        cover = (labels[y:y + h, x:x + w] == i).mean(axis=1) >= 0.5
+        rows = np.flatnonzero(cover)
+        if rows.size == 0:
+            continue
+        starts = np.flatnonzero(np.diff(np.concatenate([[-2], rows])) > 1)
+        x0, x1 = int(round(x * scale)), min(width, int(round((x + w) * scale)))
+        for k, start in enumerate(starts):
+            end = starts[k + 1] if k + 1 < len(starts) else rows.size
+            out.append(Rect(x0, int(y + rows[start]), x1, int(y + rows[end - 1] + 1)))
+    return out
+
+
+def _merge_collinear(segments: list[Rect], tol: int, max_gap: float) -> list[Rect]:
+    """Join segments on one row (centres within ``tol``) less than ``max_gap`` apart: a broken line."""
+    out: list[Rect] = []
+    for seg in sorted(segments, key=lambda r: (r.y0, r.x0)):
+        for k, line in enumerate(out):
+            if (abs(line.y0 + line.y1 - seg.y0 - seg.y1) <= 2 * tol
+                    and seg.x0 - line.x1 <= max_gap and line.x0 - seg.x1 <= max_gap):
+                out[k] = Rect(min(line.x0, seg.x0), min(line.y0, seg.y0),
+                               max(line.x1, seg.x1), max(line.y1, seg.y1))
+                break
+        else:
+            out.append(seg)
+    return out
+
+
+def regions(ink: np.ndarray, lines: np.ndarray, px_per_mm: float, min_box_mm: float,
+            max_box_mm: float) -> list[Rect]:
+    """Regions between two horizontal lines and two walls, of digit box height.
+
+    Collinear line segments are joined across gaps shorter than a box (broken
+    lines).  For every pair of lines lying a box height apart, the columns of
+    the band between them are walls when ink covers ``_WALL_COVER`` of the
+    band's height (ignoring a thin margin at each line), or
+    ``_BROKEN_WALL_COVER`` of it reaching both lines; the stretches between
+    neighbouring walls are regions when they are not mostly ink, no line runs
+    across them and the lines run along most of their top and bottom edges.
+    A badly broken wall may be missed (two boxes run together) and a straight
+    stroke may pass for a wall (a box split in two); fitting each field's row
+    of boxes repairs both.
+    """
+    lo, hi = 0.9 * min_box_mm * px_per_mm, max_box_mm * px_per_mm
+    margin = max(1, int(round(_BAND_MARGIN_MM * px_per_mm)))
+    band_px = max(2, int(round(LINE_BAND_MM * px_per_mm)))
+    max_wall = max(3, int(round(_MAX_WALL_MM * px_per_mm)))
+    step = max(1, int(round(_POOL_MM * px_per_mm)))
+    segments = [r for r in _segments(lines, step) if r.h <= max_wall]
+    segments = _merge_collinear(segments, max(1, int(round(0.3 * px_per_mm))),
+                                min_box_mm * px_per_mm)
+    segments = [r for r in segments if r.w >= lo]
+    segments.sort(key=lambda r: r.y0)
+    rects = set()
+    for i, top in enumerate(segments):
+        for bottom in segments[i + 1:]:
+            height = bottom.y0 - top.y1
+            if height > hi:
+                break
+            xa, xb = max(top.x0, bottom.x0), min(top.x1, bottom.x1)
+            if height < lo or xb - xa < lo:
+                continue
+            # the whole length of both lines (one may have lost its end), and the end walls
+            xa = max(0, min(top.x0, bottom.x0) - band_px)
+            xb = min(ink.shape[1], max(top.x1, bottom.x1) + band_px)
+            band = ink[top.y1 + margin:bottom.y0 - margin, xa:xb] > 0
+            for x0, x1 in _between_walls(band, max_wall):
+                inside = band[:, x0:x1]
+                r = Rect(xa + x0, top.y1, xa + x1, bottom.y0)
+                if (inside.mean() <= _MAX_INK and inside.mean(axis=1).max() < _CROSSING
+                        and ruled(lines, r.x0, r.x1, r.y0, r.y1, band_px)):
+                    rects.add(r)
+    return sorted(rects, key=lambda r: (r.y0, r.x0))
+
+
+def _between_walls(band: np.ndarray, max_wall: int) -> list[tuple[int, int]]:
+    """Column ranges ``[x0, x1)`` between neighbouring walls of a (rows, columns) ink band.
+
+    Whole walls and broken walls are found apart; a run of either wider than
+    ``max_wall`` is a dark blob (a bold digit against a wall), not a wall.
+    """
+    cover = band.mean(axis=0)
+    ends = max(1, band.shape[0] // 30)
+    reach = band[:ends].any(axis=0) & band[-ends:].any(axis=0)
+    reach = reach | np.roll(reach, 1) | np.roll(reach, -1)
+    wall = _thin_runs(cover >= _WALL_COVER, max_wall)
+    wall |= _thin_runs((cover >= _BROKEN_WALL_COVER) & reach, max_wall)
+    starts, stops = _runs(wall)
+    return [(int(a), int(b)) for a, b in zip(stops[:-1], starts[1:]) if b - a >= 2]
+
+
+def _runs(flags: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Starts and stops (exclusive) of the runs of True in a 1-D bool array."""
+    edges = np.flatnonzero(np.diff(np.concatenate([[0], flags.astype(np.int8), [0]])))
+    return edges[0::2], edges[1::2]
+
+
+def _thin_runs(flags: np.ndarray, max_len: int) -> np.ndarray:
+    """``flags`` with the runs longer than ``max_len`` cleared."""
+    out = np.zeros_like(flags)
+    for a, b in zip(*_runs(flags)):
+        if b - a <= max_len:
+            out[a:b] = True
+    return out
+
+
+def ruled(mask: np.ndarray, x0: int, x1: int, y0: int, y1: int, band: int,
+          share: float = _RULED, *, either: bool = False) -> bool:
+    """Whether ``mask`` runs along ``share`` of ``x0..x1`` just above ``y0`` and below ``y1``.
+
+    Both edges must be covered so, or with ``either`` the two on average.
+    """
+    if x1 <= x0:
+        return True
+    top = mask[max(0, y0 - band):y0, x0:x1].any(axis=0).mean()
+    bottom = mask[y1:y1 + band, x0:x1].any(axis=0).mean()
+    return ((top + bottom) / 2 if either else min(top, bottom)) >= share
+
+
+def line_warnings(flat: np.ndarray, lines: np.ndarray, paper: float) -> list[str]:
+    """``["the printed lines are faint"]`` when the lines are fainter than the module notes allow, else ``[]``."""
+    sample = flat[::2, ::2][lines[::2, ::2] > 0]
+    if sample.size and paper - float(np.median(sample)) < _FAINT_LINES:
+        return ["the printed lines are faint"]
+    return []
