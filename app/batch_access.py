@@ -11,12 +11,20 @@ boxes, the fields of a page) comes from :mod:`recognizer.batch.queries`.
 :class:`ImageCache` keeps the decoded page images, their Qt copies and the box
 crops in three :class:`LruCache` s, so moving between fields does not decode
 the same image twice.
+
+:class:`SwitchGuard` keeps the clerk's review actions and a model switch
+(learning during the batch reading the unchecked digits again, in a worker)
+apart: a digit checked while its page is being read again could otherwise be
+given the new reading, and a field could be confirmed as it reads now rather
+than as the clerk saw it.
 """
 
 from __future__ import annotations
 
+import threading
 from collections import OrderedDict
-from collections.abc import Callable, Hashable
+from collections.abc import Callable, Hashable, Iterator
+from contextlib import contextmanager
 from typing import Generic, TypeVar
 
 import numpy as np
@@ -26,7 +34,7 @@ from PySide6.QtGui import QImage
 from recognizer.batch import Batch, Change
 from recognizer.batch.queries import FieldView
 
-__all__ = ["ChangeRelay", "to_qimage", "LruCache", "ImageCache"]
+__all__ = ["ChangeRelay", "SwitchGuard", "SWITCH_WORDS", "to_qimage", "LruCache", "ImageCache"]
 
 K = TypeVar("K", bound=Hashable)
 V = TypeVar("V")
@@ -39,6 +47,51 @@ class ChangeRelay(QObject):
 
     def __call__(self, change: Change) -> None:
         self.changed.emit(change)
+
+
+class SwitchGuard:
+    """Keeps review actions and a model switch apart.
+
+    A worker switching the batch to another model holds :meth:`switching`
+    for the whole switch; a view commits a review action inside
+    :meth:`action`, which does not wait: it yields False while a switch is
+    under way (say "one moment" and commit nothing). ``generation`` counts the
+    switches done: a view that remembers it when it shows something knows
+    afterwards whether what it showed may have been read again.
+    """
+
+    def __init__(self) -> None:
+        self._lock = threading.Lock()
+        self.generation = 0
+
+    @contextmanager
+    def switching(self) -> Iterator[None]:
+        """Held by the worker while it switches the model (blocks while an action is being committed)."""
+        with self._lock:
+            try:
+                yield
+            finally:
+                self.generation += 1
+
+    @contextmanager
+    def action(self) -> Iterator[bool]:
+        """Around one review action: True when it may be committed now, False while a switch is under way."""
+        free = self._lock.acquire(blocking=False)
+        try:
+            yield free
+        finally:
+            if free:
+                self._lock.release()
+
+    @property
+    def busy(self) -> bool:
+        """Whether a switch is under way."""
+        return self._lock.locked()
+
+
+#: What a view says when a review action meets a model switch.
+SWITCH_WORDS = ("One moment: the unchecked digits are being read again with what was learned from your "
+                "corrections. Nothing was saved; try again in a few seconds.")
 
 
 # --------------------------------------------------------------------------- images

@@ -13,6 +13,17 @@ freezes.
 Reading resumes by itself: :func:`recognizer.ingest.ingest_scans` commits each
 page as it is read, so reading the same scans again after a cancel (or a
 crash) reads only the pages not yet in the batch.
+
+Learning during the batch: after each review action the controller asks
+:func:`recognizer.learning.learning_due` whether enough digits were checked
+since the last round (the batch's ``learning_every``), and if so runs one
+round in a :class:`app.workers.LearnWorker`, never two at once and never
+while scans are being read or another worker runs. A round that is
+accepted switches the batch to the learned model; the worker holds the
+:class:`app.batch_access.SwitchGuard` (``guard``) while it reads the
+unchecked digits again, and the views commit review actions only when the
+guard lets them. Reading scans, closing the batch or turning learning off
+cancels a round (nothing is written before the switch).
 """
 
 from __future__ import annotations
@@ -25,15 +36,16 @@ from PySide6.QtCore import QObject, QThread, Signal
 
 from recognizer.batch import Batch, BatchFileError, BatchInUseError
 from recognizer.batch.queries import labelled_count
+from recognizer.learning import LEARNING_SETTINGS, LearningRound, learning_due
 from recognizer.digits.model import DigitModel, ModelFileError, load_model
 from recognizer.digits.retrain import MIN_SAMPLES
 from recognizer.forms.template_file import TemplateFileError, load_template
 from recognizer.ingest import IngestSummary
 from recognizer.scans.files import ScanProblem, list_scans
 
-from .batch_access import ChangeRelay, ImageCache
+from .batch_access import ChangeRelay, ImageCache, SwitchGuard
 from .settings import WindowSettings
-from .workers import Job, ReadWorker, Worker, too_few_message
+from .workers import Job, LearnWorker, ReadWorker, Worker, too_few_message
 
 __all__ = ["BatchController"]
 
@@ -67,6 +79,14 @@ class BatchController(QObject):
         Reading has ended (finished, cancelled or failed) and its thread has
         stopped; ``summary`` is the :class:`recognizer.ingest.IngestSummary`,
         or None after a failure.
+    learning_started()
+        A round of learning during the batch has started.
+    learning_progress(text)
+        Its steps, in words.
+    learning_done(round)
+        The round has ended and its thread has stopped: a
+        :class:`recognizer.learning.LearningRound` (accepted or refused), or
+        None when it was cancelled or failed (``message`` says why).
     message(text)
         Something to tell the clerk in passing.
     problem(title, text)
@@ -83,6 +103,9 @@ class BatchController(QObject):
     reading_progress = Signal(int, int, str)
     reading_cancelled = Signal()
     reading_done = Signal(object)
+    learning_started = Signal()
+    learning_progress = Signal(str)
+    learning_done = Signal(object)
     message = Signal(str)
     problem = Signal(str, str)
     settings_changed = Signal()
@@ -98,6 +121,15 @@ class BatchController(QObject):
         self.jobs: list[Job] = []
         self._reading: Job | None = None
         self._summary: IngestSummary | None = None
+        #: Keeps review actions away from a model switch (see :class:`SwitchGuard`).
+        self.guard = SwitchGuard()
+        #: Fine-tuning settings of a round of learning during the batch (tests use smaller ones).
+        self.learning_settings = LEARNING_SETTINGS
+        self._learning: Job | None = None
+        self._round: LearningRound | None = None
+        self._learning_refusal: str | None = None
+        self._not_before = 0
+        self._then: Callable[[], None] | None = None
 
     # ------------------------------------------------------------------ workers
 
@@ -160,10 +192,12 @@ class BatchController(QObject):
         self.relay.changed.connect(self._on_change)
         batch.subscribe(self.relay)
         self._load_model()
+        self._learning_refusal, self._not_before = None, 0
         self.settings.add_recent(path)
         self.settings.set("last_batch", str(path.absolute()))
         self.opened.emit(batch)
         self.settings_changed.emit()
+        self.maybe_learn()  # digits checked elsewhere (e.g. inkcount review) may be due
         return True
 
     def _load_model(self) -> None:
@@ -186,6 +220,7 @@ class BatchController(QObject):
         """
         if self.batch is not None:
             self.stop_reading()
+            self.cancel_learning()
             self.wait_for_jobs()
             self.closing.emit()
             self.batch.unsubscribe(self.relay)
@@ -203,6 +238,8 @@ class BatchController(QObject):
     def _on_change(self, change) -> None:
         if self.batch is not None:
             self.changed.emit(change)
+            if change.kind == "review":
+                self.maybe_learn()
 
     # ------------------------------------------------------------------ reading
 
@@ -241,6 +278,10 @@ class BatchController(QObject):
 
     def _start_reading(self, files: list[Path], problems: list[ScanProblem],
                        template_paths: tuple[str, ...] = ()) -> None:
+        if self.learning:  # pages read during a switch would keep the old model's reading
+            self.message.emit("Reading starts as soon as learning from your corrections has stopped…")
+            self.cancel_learning(then=lambda: self._start_reading(files, problems, template_paths))
+            return
         worker = ReadWorker(self.batch, files, problems, self.model, template_paths=template_paths)
         worker.progress.connect(self._on_progress)
         worker.finished.connect(self._on_read_finished)
@@ -293,6 +334,89 @@ class BatchController(QObject):
     def _on_reading_ended(self, _job: Job) -> None:
         self._reading = None
         self.reading_done.emit(self._summary)
+        self.maybe_learn()
+
+    # ------------------------------------------------------------------ learning during the batch
+
+    @property
+    def learning(self) -> bool:
+        """Whether a round of learning is running (until its thread has stopped)."""
+        return self._learning is not None
+
+    @property
+    def learning_worker(self) -> LearnWorker | None:
+        return None if self._learning is None else self._learning.worker
+
+    def learning_refusal(self) -> str | None:
+        """Why learning during the batch cannot run on the open batch (e.g. no held-out digits), or None."""
+        return self._learning_refusal
+
+    def maybe_learn(self) -> bool:
+        """Start a round of learning if one is due and nothing else runs; True if started."""
+        batch = self.batch
+        if (batch is None or batch.read_only or self.model is None or self._learning_refusal is not None
+                or self.jobs or not learning_due(batch) or labelled_count(batch) < self._not_before):
+            return False
+        worker = LearnWorker(batch, self.model, self.guard, settings=self.learning_settings)
+        worker.progress.connect(self.learning_progress)
+        worker.finished.connect(self._on_learned)
+        worker.failed.connect(self._on_learning_failed)
+        self._round = None
+        self._learning = self.start_job(worker)
+        self._learning.ended.connect(self._on_learning_ended)
+        self.learning_started.emit()
+        return True
+
+    def cancel_learning(self, *, then: Callable[[], None] | None = None) -> bool:
+        """Stop the round of learning at its next step (nothing written unless its switch has begun).
+
+        ``then`` is called once its thread has stopped (at once when no round
+        runs). The next round waits for another ``learning_every`` checked
+        digits. False: no round was running.
+        """
+        if self._learning is None:
+            if then is not None:
+                then()
+            return False
+        self._then = then
+        if self.batch is not None:
+            self._not_before = labelled_count(self.batch) + self.batch.settings.learning_every
+        self._learning.worker.cancel()
+        return True
+
+    def set_learning(self, on: bool) -> None:
+        """Turn learning during the batch on or off for the open batch (kept in the batch)."""
+        if self.batch is None or self.batch.read_only:
+            return
+        with self.batch.transaction() as conn:
+            self.batch.update_settings(conn, learning=bool(on))
+        if on:
+            self._not_before = 0
+            self.maybe_learn()
+        else:
+            self.cancel_learning()
+
+    def _on_learned(self, done: LearningRound | None) -> None:
+        job = self._learning
+        if job is None or job.worker is None or job.worker.batch is not self.batch:
+            return  # a round of a batch closed meanwhile
+        self._round = done
+        if done is not None and done.accepted and done.model is not None:
+            self.model = done.model
+
+    def _on_learning_failed(self, message: str) -> None:
+        self._learning_refusal = message.split("\n")[0]
+        self.message.emit(f"{self._learning_refusal} Learning is off for now.")
+
+    def _on_learning_ended(self, _job: Job) -> None:
+        self._learning = None
+        done, self._round = self._round, None
+        self.learning_done.emit(done)
+        then, self._then = self._then, None
+        if then is not None:
+            then()
+        elif done is not None:
+            self.maybe_learn()
 
     # ------------------------------------------------------------------ retraining
 

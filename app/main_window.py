@@ -32,7 +32,7 @@ from .dialogs.retrain import RetrainDialog
 from .dialogs.strictness import StrictnessDialog
 from .look import CAUTION
 from .settings import WindowSettings
-from .views.model_panel import RETRAIN_TIP, ModelPanel
+from .views.model_panel import LEARN_TIP, RETRAIN_TIP, ModelPanel
 from .views.page_list import PageList
 from .views.page_view import PageView
 from .views.review_panel import KEY_HELP, ReviewPanel
@@ -76,6 +76,7 @@ class MainWindow(QMainWindow):
         self.settings = settings or WindowSettings()
         self.controller = BatchController(self.settings, self)
         self.retrain_box: RetrainDialog | None = None
+        self._learning_step: str | None = None
         #: Fine-tuning settings of Model > Retrain (tests use fewer epochs).
         self.retrain_settings = RetrainSettings()
         self.last_message = ""
@@ -119,11 +120,15 @@ class MainWindow(QMainWindow):
         self.page_view = PageView()
         self.page_view.field_clicked.connect(self._field_clicked)
         self.review = ReviewPanel()
+        self.review.guard = self.controller.guard
         self.review.field_shown.connect(self._field_shown)
         self.review.message.connect(self.say)
         self.wall = SortWall()
+        self.wall.guard = self.controller.guard
         self.wall.message.connect(self.say)
         self.model_panel = ModelPanel()
+        self.model_panel.learning_toggled.connect(self.set_learning)
+        self.model_panel.stop_learning.connect(self.stop_learning)
         self.tabs = QTabWidget()
         self.tabs.addTab(self.review, "Check fields (F2)")
         self.tabs.addTab(self.wall, "Sort wall (F3)")
@@ -209,6 +214,14 @@ class MainWindow(QMainWindow):
         self.retrain_action = self._action(model, "&Retrain from this batch's corrections…", self.retrain,
                                            "Ctrl+Shift+R", RETRAIN_TIP)
         self.model_panel.retrain_button.clicked.connect(self.retrain)
+        model.addSeparator()
+        self.learn_action = self._action(model, "&Learn from my corrections as I check", self.set_learning,
+                                         tip=LEARN_TIP)
+        self.learn_action.setCheckable(True)
+        self.stop_learning_action = self._action(model, "&Stop learning now", self.stop_learning,
+                                                 tip="Stop the round of learning running now; nothing changes in "
+                                                 "the batch")
+        self.stop_learning_action.setEnabled(False)
         model.setToolTipsVisible(True)
 
         help_menu = bar.addMenu("&Help")
@@ -218,7 +231,8 @@ class MainWindow(QMainWindow):
         self._cancel_shortcut.setShortcut(QKeySequence("Esc"))
         self._cancel_shortcut.setShortcutContext(Qt.ShortcutContext.WindowShortcut)
         self._cancel_shortcut.triggered.connect(lambda: self.cancel_reading() if self.reading else None)
-        self._batch_actions = [self.export_action, self.close_action, self.strict_action, self.retrain_action]
+        self._batch_actions = [self.export_action, self.close_action, self.strict_action, self.retrain_action,
+                               self.learn_action]
         self._update_enabled()
         self._fill_recent()
 
@@ -235,6 +249,9 @@ class MainWindow(QMainWindow):
         c.reading_progress.connect(self._on_progress)
         c.reading_cancelled.connect(self.status.reading_cancelled)
         c.reading_done.connect(self._reading_ended)
+        c.learning_started.connect(self._learning_started)
+        c.learning_progress.connect(self._learning_progress)
+        c.learning_done.connect(self._learning_done)
 
     def _show_keys(self) -> None:
         QMessageBox.information(self, "Keys", KEY_HELP.replace(" · ", "\n") + "\n\nSort wall:\n"
@@ -402,6 +419,8 @@ class MainWindow(QMainWindow):
         self.wall.set_batch(None, None)
 
     def _batch_closed(self) -> None:
+        self.status.learning_ended()
+        self.model_panel.show_learning(None, None)
         self.pages.set_batch(None)
         self.page_view.show_page(None, None, [])
         self.setWindowTitle("Inkcount")
@@ -431,6 +450,8 @@ class MainWindow(QMainWindow):
         elif change.kind == "flags":
             self.pages.fill()
             self._refresh_page_view()
+            if self.review.view is not None and self.review.view.page_id == self.page_view.page_id:
+                self.page_view.select_field(self.review.view.field_id)
         else:
             pages = pages_of_fields(self.batch, change.field_ids or ())
             self.pages.update_pages(pages)
@@ -483,14 +504,67 @@ class MainWindow(QMainWindow):
 
     def _show_model(self, *, with_samples: bool = False) -> None:
         samples = labelled_count(self.batch) if with_samples and self.batch is not None else None
-        self.model_panel.show_model(self.model, self.batch.settings if self.batch else None, samples)
+        settings = self.batch.settings if self.batch else None
+        self.model_panel.show_model(self.model, settings, samples)
+        self._show_learning(settings, samples)
+
+    def _show_learning(self, settings=None, checked: int | None = None, running: str | None = None) -> None:
+        if settings is None and self.batch is not None:
+            settings = self.batch.settings
+        if checked is None and self.batch is not None:
+            checked = labelled_count(self.batch)
+        if running is None and self.controller.learning:
+            running = self._learning_step
+        self.model_panel.show_learning(settings, checked, running=running)
+        self.learn_action.setChecked(bool(settings and settings.learning))
+        self.stop_learning_action.setEnabled(self.controller.learning)
+
+    # ------------------------------------------------------------------ learning during the batch
+
+    def set_learning(self, on: bool) -> None:
+        """Model > Learn from my corrections as I check (and the model panel's check box)."""
+        if self.batch is None:
+            return
+        self.controller.set_learning(on)
+        self.say("The model learns from your corrections as you check." if on else
+                 "Learning from your corrections is off; the model in use stays.")
+        self._show_learning()
+
+    def stop_learning(self) -> None:
+        """Stop the round running now (nothing changes in the batch)."""
+        if self.controller.cancel_learning():
+            self._learning_step = "stopping…"
+            self.say(f"Stopping this round of learning; the model in use stays. The next round comes after "
+                     f"{self.batch.settings.learning_every:,} more checked digits.")
+            self._show_learning()
+
+    def _learning_started(self) -> None:
+        self._learning_step = "starting…"
+        self.status.learning_started()
+        self._show_learning()
+
+    def _learning_progress(self, text: str) -> None:
+        self._learning_step = text
+        if self.tabs.currentIndex() == TAB_MODEL:
+            self._show_learning()
+
+    def _learning_done(self, done) -> None:
+        self.status.learning_ended()
+        self._learning_step = None
+        if self.batch is None:
+            return
+        if done is not None:
+            self.say(done.in_words())
+            if done.accepted:
+                self._show_model(with_samples=self.tabs.currentIndex() == TAB_MODEL)
+        self._show_learning()
 
     # ------------------------------------------------------------------ dialogs
 
     def strictness_dialog(self) -> StrictnessDialog | None:
         if self.batch is None or self.model is None:
             return None
-        dialog = StrictnessDialog(self.batch, self.model, self)
+        dialog = StrictnessDialog(self.batch, self.model, self, guard=self.controller.guard)
         dialog.open()
         dialog.accepted.connect(lambda: (self._show_model(), self.say("Strictness changed.")))
         return dialog
@@ -506,6 +580,10 @@ class MainWindow(QMainWindow):
         if self.retrain_box is not None and self.retrain_box.running:
             self.retrain_box.show()
             return self.retrain_box
+        if self.controller.learning:
+            self.say("The model is learning from your corrections right now (Model tab); retrain once that round "
+                     "has ended, or stop it first.")
+            return None
         refusal = self.controller.retrain_refusal()
         if refusal is not None:
             self.show_problem("Retrain", refusal)

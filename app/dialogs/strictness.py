@@ -23,16 +23,20 @@ from recognizer.batch.queries import open_digits
 from recognizer.digits.model import DigitModel
 from recognizer.review import ReviewError, set_target_error, set_threshold
 
+from ..batch_access import SwitchGuard
+
 __all__ = ["StrictnessDialog"]
 
 
 class StrictnessDialog(QDialog):
     """Set the target share of wrong digits (or a confidence threshold) with a live count."""
 
-    def __init__(self, batch: Batch, model: DigitModel, parent=None) -> None:
+    def __init__(self, batch: Batch, model: DigitModel, parent=None, *, guard: SwitchGuard | None = None) -> None:
         super().__init__(parent)
         self.setWindowTitle("How strict to be")
         self.batch, self.model = batch, model
+        self.guard = guard
+        self._seen = -1 if guard is None or guard.busy else guard.generation
         settings = batch.settings
         # Digits no person has handled yet: the ones a new setting can send to review or let through.
         self._open = open_digits(batch)
@@ -96,6 +100,18 @@ class StrictnessDialog(QDialog):
                              f"(now {self.now:,}); threshold {100 * self.chosen_threshold():.2f} % sure.")
 
     def apply(self) -> None:
+        if self.guard is None:
+            self._apply()
+            return
+        with self.guard.action() as free:
+            if not free or self.guard.generation != self._seen:
+                self.problem = ("the model changed while this was open (learning from your corrections); "
+                                "close this and open it again")
+                self.preview.setText(f"Not applied: {self.problem}.")
+                return
+            self._apply()
+
+    def _apply(self) -> None:
         try:
             if self.by_target.isChecked():
                 set_target_error(self.batch, self.target.value() / 100, model=self.model)

@@ -1,5 +1,6 @@
-"""Which model reads the batch, how good it was on digits it never saw, and its
-accuracy–reject curve (drawn with QPainter).
+"""Which model reads the batch, how good it was on digits it never saw, its
+accuracy–reject curve (drawn with QPainter), and learning during the batch
+(on or off, what it is doing, what the last round gained).
 
 The curve comes from the model file's own evaluation figures (the held-out
 reject table: share of digits sent to a person against the accuracy of those
@@ -8,17 +9,46 @@ accepted automatically).
 
 from __future__ import annotations
 
-from PySide6.QtCore import QPointF, QRectF, Qt
+from PySide6.QtCore import QPointF, QRectF, Qt, Signal
 from PySide6.QtGui import QColor, QFont, QPainter, QPainterPath, QPen
-from PySide6.QtWidgets import QFormLayout, QLabel, QPushButton, QSizePolicy, QVBoxLayout, QWidget
+from PySide6.QtWidgets import (
+    QCheckBox,
+    QFormLayout,
+    QHBoxLayout,
+    QLabel,
+    QPushButton,
+    QSizePolicy,
+    QVBoxLayout,
+    QWidget,
+)
 
 from recognizer.batch import BatchSettings
 from recognizer.digits.model import DigitModel
+from recognizer.learning import LearningRound
 
-__all__ = ["ModelPanel", "RejectCurve", "reject_points", "retraining_in_words", "RETRAIN_TIP"]
+__all__ = ["ModelPanel", "RejectCurve", "reject_points", "retraining_in_words", "learning_in_words",
+           "RETRAIN_TIP", "LEARN_TIP"]
 
 RETRAIN_TIP = ("Fine-tune the model on the digits corrected or confirmed in this batch, see how it does "
                "before and after, and choose whether to use it (Ctrl+Shift+R)")
+
+
+LEARN_TIP = ("While you check, the model learns from the digits you corrected or confirmed, in the background, "
+             "every few hundred digits; it is used only when it reads your batch's checked digits at least as "
+             "well as the model in use. Values you corrected or confirmed never change.")
+
+
+def learning_in_words(settings: BatchSettings | None, checked: int | None) -> str:
+    """Learning during the batch, in words: off, or when the next round comes."""
+    if settings is None:
+        return "–"
+    if not settings.learning:
+        return "off"
+    if checked is None:
+        return f"on: every {settings.learning_every:,} digits you check"
+    left = settings.learned_at + settings.learning_every - checked
+    when = "at the next digit you check" if left <= 0 else f"after {left:,} more checked digit{'s' if left != 1 else ''}"
+    return f"on: every {settings.learning_every:,} digits you check; next round {when}"
 
 
 def retraining_in_words(model: DigitModel) -> str:
@@ -26,6 +56,12 @@ def retraining_in_words(model: DigitModel) -> str:
     r = model.metadata.get("retraining")
     if not r:
         return "no (the model as trained)"
+    learning = model.metadata.get("learning")
+    if learning:
+        return (f"learned while checking {learning.get('batch', 'this batch')} (round {learning.get('round', '?')}), "
+                f"from {r['n_samples']:,} checked digits; right on held-back checked digits "
+                f"{100 * r['before']['new_samples']:.1f} % → {100 * r['after']['new_samples']:.1f} %, "
+                f"on held-out digits {100 * r['before']['heldout']:.1f} % → {100 * r['after']['heldout']:.1f} %")
     files = ", ".join(b.get("file", "?") for b in r.get("batches", [])) or "batches"
     before, after = r["before"], r["after"]
     return (f"from {model.metadata.get('parent', '?')} on {r['n_learned']:,} checked digits of {files}; "
@@ -116,12 +152,44 @@ class RejectCurve(QWidget):
 
 
 class ModelPanel(QWidget):
-    """The model of the batch, its figures, and Retrain."""
+    """The model of the batch, its figures, Retrain, and learning during the batch.
+
+    Signals
+    -------
+    learning_toggled(on)
+        The clerk turned learning during the batch on or off.
+    stop_learning()
+        The clerk asked to stop the round running now.
+    """
+
+    learning_toggled = Signal(bool)
+    stop_learning = Signal()
 
     def __init__(self, parent=None) -> None:
         super().__init__(parent)
         layout = QVBoxLayout(self)
+        learn_row = QHBoxLayout()
+        self.learn_box = QCheckBox("&Learn from my corrections as I check")
+        self.learn_box.setToolTip(LEARN_TIP)
+        self.learn_box.setAccessibleName("Learn from my corrections as I check")
+        self.learn_box.setEnabled(False)
+        self.learn_box.toggled.connect(self.learning_toggled)
+        learn_row.addWidget(self.learn_box, 1)
+        self.stop_button = QPushButton("Stop learning now")
+        self.stop_button.setToolTip("Stop this round; nothing changes in the batch. The next round comes after "
+                                    "as many more checked digits.")
+        self.stop_button.setAccessibleName("Stop learning now")
+        self.stop_button.hide()
+        self.stop_button.clicked.connect(self.stop_learning)
+        learn_row.addWidget(self.stop_button)
+        layout.addLayout(learn_row)
         form = QFormLayout()
+        self.learning = QLabel("–")
+        self.learning.setWordWrap(True)
+        self.learning.setAccessibleName("Learning while you check")
+        self.last_round = QLabel("–")
+        self.last_round.setWordWrap(True)
+        self.last_round.setAccessibleName("Last learning round")
         self.name = QLabel("–")
         self.heldout = QLabel("–")
         self.heldout.setWordWrap(True)
@@ -136,6 +204,8 @@ class ModelPanel(QWidget):
         form.addRow("Right on digits it never saw:", self.heldout)
         form.addRow("Strictness of this batch:", self.strictness)
         form.addRow("Checked digits to learn from:", self.samples)
+        form.addRow("Learning while you check:", self.learning)
+        form.addRow("Last round of learning:", self.last_round)
         layout.addLayout(form)
         layout.addWidget(QLabel("<b>Accuracy against the share of digits a person checks</b> (held-out digits)"))
         self.curve = RejectCurve()
@@ -147,6 +217,19 @@ class ModelPanel(QWidget):
         layout.addWidget(self.retrain_button)
         self.name.setAccessibleName("Model name")
         self.heldout.setAccessibleName("Held-out accuracy")
+
+    def show_learning(self, settings: BatchSettings | None, checked: int | None, *, running: str | None = None) -> None:
+        """Learning during the batch: the check box, when the next round comes (or the step
+        ``running`` now, with the Stop button), and what the last round did."""
+        self.learn_box.blockSignals(True)
+        self.learn_box.setChecked(bool(settings and settings.learning))
+        self.learn_box.blockSignals(False)
+        self.learn_box.setEnabled(settings is not None)
+        self.stop_button.setVisible(running is not None)
+        self.learning.setText(f"learning now: {running}" if running is not None
+                              else learning_in_words(settings, checked))
+        last = settings.learning_last if settings is not None else None
+        self.last_round.setText(LearningRound.from_json(last).in_words() if last else "none yet")
 
     def show_model(self, model: DigitModel | None, settings: BatchSettings | None, samples: int | None) -> None:
         if model is None:

@@ -20,10 +20,20 @@ Keys (the panel has the focus)::
 Every action goes through :mod:`recognizer.review` and is committed at once.
 The next fields' crops and page strips are prepared while the clerk looks at
 the current one, so moving on never waits for the disk.
+
+When learning during the batch reads the unchecked digits again (a
+``"flags"`` change), the field shown stays on screen, even if it is no
+longer to check, and the queue goes on from it. If its reading changed, it
+is drawn again and the next Enter only says so (look again, then Enter).
+Actions are committed inside the window's :class:`app.batch_access.SwitchGuard`
+(``guard``): while a switch is under way nothing is saved, and a field
+read again since it was drawn is drawn again instead of being saved.
 """
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 
 from PySide6.QtCore import QRectF, QSize, Qt, QTimer, Signal
@@ -52,7 +62,7 @@ from recognizer.review import (
 )
 from recognizer.states import NOT_A_DIGIT_MARK, reasons_in_words
 
-from ..batch_access import ImageCache
+from ..batch_access import ImageCache, SwitchGuard
 from ..look import STATE_MARKS, STATE_WORDS, caution_label
 
 __all__ = ["ReviewPanel", "BoxTile", "ORDER_CHOICES", "KEY_HELP"]
@@ -65,6 +75,19 @@ _PREFETCH = 4
 _LOW = QColor("#D55E00")
 _GOOD = QColor("#009E73")
 _CURSOR = QColor("#0072B2")
+#: Said when learning changed the reading of the field shown.
+CHANGED_WORDS = ("Learning from your corrections changed the reading of this field: look again before saving "
+                 "(what you typed is kept).")
+#: Said when an action waits for a model switch to end.
+WAIT_WORDS = ("One moment: the unchecked digits are being read again with what was learned from your "
+              "corrections; this is saved as soon as that ends (any other key: not saved).")
+#: Said when Enter meets a field whose reading changed since the clerk last looked.
+SAVE_AGAIN_WORDS = "This field's reading changed (learning); it is shown as it reads now. Enter again saves it."
+
+
+def _readings(view: FieldView) -> tuple:
+    """What the clerk sees of a field's values: the value, and each box's reading and value."""
+    return view.value, view.whole, tuple((d.digit_id, d.blank, d.read, d.value) for d in view.digits)
 
 
 class BoxTile(QWidget):
@@ -174,6 +197,14 @@ class ReviewPanel(QFrame):
         self.view: FieldView | None = None
         self.edit = _Edit([])
         self._strips: dict[int, QPixmap] = {}
+        #: Set by the window: keeps actions away from a model switch.
+        self.guard: SwitchGuard | None = None
+        self._seen = 0
+        self._look_again = False
+        self._pending = None
+        self._retry = QTimer(self)
+        self._retry.setInterval(150)
+        self._retry.timeout.connect(self._retry_pending)
         self._build()
 
     # ---- layout
@@ -247,7 +278,12 @@ class ReviewPanel(QFrame):
             self.next_field(from_start=True)
 
     def reload_queue(self) -> None:
-        """Read the review queue again (after reading pages or a change of strictness)."""
+        """Read the review queue again (after reading pages, a change of strictness or a new model).
+
+        The place in the queue stays with the field shown: if it is no longer
+        to check, the next field is the one that came after it.
+        """
+        old_items, old_index = self.items, self.index
         if self.batch is None:
             self.items, self._item_index, self._open = [], {}, set()
         else:
@@ -255,8 +291,25 @@ class ReviewPanel(QFrame):
             self._item_index = {it.field_id: i for i, it in enumerate(self.items)}
             self._open = set(self._item_index)
         if self.view is not None:
-            self.index = self._item_index.get(self.view.field_id, self.index)
+            self.index = self._item_index.get(self.view.field_id, self._place_after(old_items, old_index))
         self._update_counter()
+
+    def _place_after(self, old_items: list[ReviewItem], old_index: int) -> int:
+        """The new index from which "next" goes on, for a field shown that left the queue.
+
+        By page, the last field before it in page order; otherwise the
+        nearest field before it in the old order that is still in the queue.
+        """
+        if not 0 <= old_index < len(old_items):
+            return -1
+        here = old_items[old_index]
+        if self.order == "page" and self.view is not None and here.field_id == self.view.field_id:
+            before = [i for i, it in enumerate(self.items) if it.sort_key < here.sort_key]
+            return before[-1] if before else -1
+        for item in reversed(old_items[:old_index + 1]):
+            if item.field_id in self._item_index:
+                return self._item_index[item.field_id]
+        return -1
 
     def set_order(self, order: str) -> None:
         if order == self.order or self.batch is None:
@@ -286,6 +339,8 @@ class ReviewPanel(QFrame):
             self.reload_queue()
             if self.view is None:
                 self.next_field(from_start=True)
+            elif change.kind == "flags":
+                self._redraw_if_read_again()
             return
         if len(change.field_ids) > 1:  # the template rules checked again changed other fields too
             self.reload_queue()
@@ -297,7 +352,8 @@ class ReviewPanel(QFrame):
         self._strips_keep()
         self._update_counter()
         if self.view is not None and self.view.field_id in change.field_ids and not self.edit.touched:
-            self._show(load_field(self.batch, self.view.field_id))
+            seen = self._generation()
+            self._show(load_field(self.batch, self.view.field_id), seen=seen)
 
     def _strips_keep(self) -> None:
         if len(self._strips) > 64:
@@ -311,8 +367,9 @@ class ReviewPanel(QFrame):
             return
         n = len(self.items)
         if not self._open or n == 0:
+            seen = self._generation()
             self._show(None if self.view is None or self.view.field_id in self._open else
-                       load_field(self.batch, self.view.field_id))
+                       load_field(self.batch, self.view.field_id), seen=seen)
             self.message.emit("Nothing left to check in this batch.")
             return
         start = -1 if from_start and step > 0 else self.index
@@ -333,17 +390,64 @@ class ReviewPanel(QFrame):
         if self.batch is None:
             return
         self.index = self._item_index.get(field_id, self.index)
-        self._show(load_field(self.batch, field_id))
+        seen = self._generation()
+        self._show(load_field(self.batch, field_id), seen=seen)
         QTimer.singleShot(0, self._prefetch)
 
-    def _show(self, view: FieldView | None) -> None:
+    def _generation(self) -> int:
+        """The model switches done so far, before loading a field to show (-1 during a switch: the field
+        loaded may be half read again, so it is checked again before saving)."""
+        if self.guard is None:
+            return 0
+        return -1 if self.guard.busy else self.guard.generation
+
+    def _show(self, view: FieldView | None, *, seen: int | None = None) -> None:
+        """Show ``view`` (loaded when the guard's generation was ``seen``; None: the field shown again)."""
+        if view is None or self.view is None or view.field_id != self.view.field_id:
+            self._drop_pending()
         self.view = view
         self.edit = _Edit([None] * (len(view.slots) if view else 0))
         if view is not None:
             self.edit.cursor = 0
+        if seen is not None:
+            self._seen = seen
+            self._look_again = False
         self._render()
         if view is not None:
             self.field_shown.emit(view.field_id, view.page_id)
+
+    def _redraw_if_read_again(self, seen: int | None = None) -> bool:
+        """Draw the field shown again as it is stored now; True (and a word to the clerk) if its reading changed.
+
+        What the clerk typed stays when the field still has as many boxes.
+        """
+        if self.batch is None or self.view is None:
+            return False
+        self._seen = self._generation() if seen is None else seen
+        fresh = load_field(self.batch, self.view.field_id)
+        changed = _readings(fresh) != _readings(self.view)
+        self.view = fresh
+        if len(self.edit.typed) != len(fresh.slots):
+            self.edit = _Edit([None] * len(fresh.slots))
+        if changed:
+            self._look_again = True
+            self.message.emit(CHANGED_WORDS)
+        self._render()
+        return changed
+
+    def _still_as_shown(self) -> bool:
+        """Inside the guard, before saving: whether the field shown has not been read again since it was drawn."""
+        if self._look_again:
+            self._look_again = False
+            self.message.emit(SAVE_AGAIN_WORDS)
+            return False
+        if self.guard is None or self.guard.generation == self._seen:
+            return True
+        if not self._redraw_if_read_again(self.guard.generation):  # the guard is held: no switch now
+            return True
+        self._look_again = False
+        self.message.emit(SAVE_AGAIN_WORDS)
+        return False
 
     # ---- drawing
 
@@ -461,6 +565,9 @@ class ReviewPanel(QFrame):
     def keyPressEvent(self, event) -> None:  # noqa: N802 (Qt name)
         key, mods, text = event.key(), event.modifiers(), event.text()
         ctrl = bool(mods & Qt.KeyboardModifier.ControlModifier)
+        if self._pending is not None and text and key not in (Qt.Key.Key_Return, Qt.Key.Key_Enter):
+            self._drop_pending()
+            self.message.emit("Not saved: you went on before the digits were read again.")
         if ctrl and key == Qt.Key.Key_Z:
             self.undo_last()
         elif ctrl and key == Qt.Key.Key_U or text == "*":
@@ -496,22 +603,60 @@ class ReviewPanel(QFrame):
 
     # ---- actions (each one committed by the library at once)
 
+    @contextmanager
+    def _guarded(self, action, *, as_shown: bool = True) -> Iterator[bool]:
+        """Around ``action``: True when it may be committed now; with ``as_shown``, only if the
+        field shown has not been read again since it was drawn. While a model switch is under
+        way, False, and ``action`` runs again once the switch has ended."""
+        self._drop_pending()
+        if self.guard is None:
+            yield True
+            return
+        with self.guard.action() as free:
+            if not free:
+                self._pending = action
+                self._retry.start()
+                self.message.emit(WAIT_WORDS)
+                yield False
+            else:
+                yield not as_shown or self._still_as_shown()
+
+    @property
+    def waiting(self) -> bool:
+        """Whether an action waits for a model switch to end."""
+        return self._pending is not None
+
+    def _retry_pending(self) -> None:
+        if self.guard is not None and self.guard.busy:
+            return
+        action = self._pending
+        self._drop_pending()
+        if action is not None and self.batch is not None:
+            action()
+
+    def _drop_pending(self) -> None:
+        self._retry.stop()
+        self._pending = None
+
     def save(self) -> None:
         """Enter: confirm the field as it stands, or save what was typed; then go on."""
         if self.batch is None or self.view is None:
             return
-        fid = self.view.field_id
-        try:
-            if self.edit.touched:
-                value = self.typed_value()
-                set_field(self.batch, fid, value)
-                self.message.emit(f"Saved {self.view.name} = {value or '(empty)'}.")
-            else:
-                confirm(self.batch, field=fid)
-                self.message.emit(f"Confirmed {self.view.name} = {self.view.value or '(empty)'}.")
-        except ReviewError as exc:
-            self.message.emit(f"Not saved: {exc}")
-            return
+        with self._guarded(self.save) as go:
+            if not go:
+                return
+            fid = self.view.field_id
+            try:
+                if self.edit.touched:
+                    value = self.typed_value()
+                    set_field(self.batch, fid, value)
+                    self.message.emit(f"Saved {self.view.name} = {value or '(empty)'}.")
+                else:
+                    confirm(self.batch, field=fid)
+                    self.message.emit(f"Confirmed {self.view.name} = {self.view.value or '(empty)'}.")
+            except ReviewError as exc:
+                self.message.emit(f"Not saved: {exc}")
+                return
         self.edit = _Edit([])
         self.next_field()
 
@@ -519,11 +664,14 @@ class ReviewPanel(QFrame):
         """Ctrl+U or *: the field cannot be read (it exports empty); then go on."""
         if self.batch is None or self.view is None:
             return
-        try:
-            mark_unreadable(self.batch, field=self.view.field_id)
-        except ReviewError as exc:
-            self.message.emit(f"Not saved: {exc}")
-            return
+        with self._guarded(self.mark_unreadable, as_shown=False) as go:
+            if not go:
+                return
+            try:
+                mark_unreadable(self.batch, field=self.view.field_id)
+            except ReviewError as exc:
+                self.message.emit(f"Not saved: {exc}")
+                return
         self.message.emit(f"Marked {self.view.name} unreadable.")
         self.edit = _Edit([])
         self.next_field()
@@ -532,11 +680,14 @@ class ReviewPanel(QFrame):
         """Ctrl+Z: take back the last action and show that field again."""
         if self.batch is None:
             return
-        try:
-            action = undo(self.batch)
-        except ReviewError as exc:
-            self.message.emit(f"Cannot undo: {exc}")
-            return
+        with self._guarded(self.undo_last, as_shown=False) as go:
+            if not go:
+                return
+            try:
+                action = undo(self.batch)
+            except ReviewError as exc:
+                self.message.emit(f"Cannot undo: {exc}")
+                return
         if action is None:
             self.message.emit("Nothing to undo.")
             return

@@ -10,7 +10,10 @@ Select crops with the mouse (click, Shift+click, Ctrl+click) or the keyboard
     Ctrl+Enter   the reading is right for the whole group
 
 A crop handled leaves its group. Every action is one call of
-:mod:`recognizer.review`, committed at once.
+:mod:`recognizer.review`, committed at once, inside the window's
+:class:`app.batch_access.SwitchGuard` (``guard``): nothing is saved while
+learning reads the batch again, and "the reading is right" is not saved for
+crops read again since the wall was built (it is built again instead).
 """
 
 from __future__ import annotations
@@ -38,7 +41,7 @@ from recognizer.digits.model import CLASSES, NOT_A_DIGIT
 from recognizer.review import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, set_digit
 from recognizer.states import NOT_A_DIGIT_MARK
 
-from ..batch_access import ImageCache
+from ..batch_access import SWITCH_WORDS, ImageCache, SwitchGuard
 
 __all__ = ["SortWall", "WALL_HELP"]
 
@@ -112,6 +115,9 @@ class SortWall(QScrollArea):
         self._titles: dict[int, QLabel] = {}
         self._items: dict[int, QListWidgetItem] = {}
         self._stale = True
+        #: Set by the window: keeps actions away from a model switch.
+        self.guard: SwitchGuard | None = None
+        self._seen = 0
         self._body = QWidget()
         self._layout = QVBoxLayout(self._body)
         self.setWidget(self._body)
@@ -136,6 +142,7 @@ class SortWall(QScrollArea):
     def load(self) -> None:
         """Build the wall from the review queue (digits to check, grouped by the digit read)."""
         self._stale = False
+        self._seen = -1 if self.guard is None or self.guard.busy else self.guard.generation
         body = QWidget()
         self._layout = QVBoxLayout(body)
         help_label = QLabel(WALL_HELP)
@@ -244,16 +251,31 @@ class SortWall(QScrollArea):
     def confirm_selected(self, lst: QListWidget) -> None:
         ids = self._selected(lst)
         row = min((lst.row(e) for e in lst.selectedItems()), default=0)
-        self._apply(ids, lambda d: confirm(self.batch, digit=d), f"Confirmed {len(ids)} as read.")
+        self._apply(ids, lambda d: confirm(self.batch, digit=d), f"Confirmed {len(ids)} as read.", as_read=True)
         self._select_row(lst, row)
 
     def confirm_group(self, group: int) -> None:
         ids = self.digit_ids(group)
-        self._apply(ids, lambda d: confirm(self.batch, digit=d), f"Confirmed {len(ids)} as read.")
+        self._apply(ids, lambda d: confirm(self.batch, digit=d), f"Confirmed {len(ids)} as read.", as_read=True)
 
-    def _apply(self, ids: list[int], action, done: str) -> None:
+    def _apply(self, ids: list[int], action, done: str, *, as_read: bool = False) -> None:
+        """``action(digit_id)`` for each of ``ids`` inside the guard; ``as_read``: it accepts the reading shown."""
         if self.batch is None or not ids:
             return
+        if self.guard is None:
+            self._commit(ids, action, done)
+            return
+        with self.guard.action() as free:
+            if not free:
+                self.message.emit(SWITCH_WORDS)
+            elif as_read and self.guard.generation != self._seen:
+                self.load()
+                self.message.emit("Learning from your corrections read these digits again: the wall now shows "
+                                  "them as they read now. Look again; nothing was saved.")
+            else:
+                self._commit(ids, action, done)
+
+    def _commit(self, ids: list[int], action, done: str) -> None:
         refused = []
         for digit_id in ids:
             try:

@@ -1,5 +1,6 @@
-"""The window's status bar: messages, the reading progress with its Cancel button, and
-the short caution about automatic reading (always shown)."""
+"""The window's status bar: messages, the reading progress with its Cancel button, a
+note while the model learns from the clerk's corrections, and the short caution about
+automatic reading (always shown)."""
 
 from __future__ import annotations
 
@@ -26,6 +27,13 @@ class StatusBar(QStatusBar):
         self.cancel_button.hide()
         self.addWidget(self.progress)
         self.addWidget(self.cancel_button)
+        self.learning = QLabel("Learning from your corrections…")
+        self.learning.setAccessibleName("Learning")
+        self.learning.setToolTip("The model learns from the digits you checked, in the background; keep checking. "
+                                 "Model tab (F4) to follow it or stop it.")
+        self.learning.setStyleSheet("color: #0072B2;")
+        self.learning.hide()
+        self.addPermanentWidget(self.learning)
         caution = QLabel("⚠ " + SHORT_CAUTION)
         caution.setToolTip(CAUTION)
         caution.setAccessibleName("Caution")
@@ -45,6 +53,12 @@ class StatusBar(QStatusBar):
 
     def reading_cancelled(self) -> None:
         self.cancel_button.setEnabled(False)
+
+    def learning_started(self) -> None:
+        self.learning.show()
+
+    def learning_ended(self) -> None:
+        self.learning.hide()
 
     def reading_ended(self) -> None:
         self.progress.hide()

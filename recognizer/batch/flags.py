@@ -8,7 +8,17 @@ problems, page warnings, layouts) and writes back what the rule decides:
   states;
 * :func:`recheck_rules` types the fields of templated pages and tests their
   rules on the reviewed values;
-* :func:`refresh_layout` flags the pages whose layout differs from the batch's.
+* :func:`refresh_layout` marks the pages whose layout differs from the
+  batch's (``pages.odd_layout``) and re-flags them;
+* :func:`field_checks` gives each field's reasons as the rule decides them
+  (:func:`recognizer.states.check_field`): the states stored here and the
+  reasons the review queue shows come from the same call.
+
+Which of a page's warnings and which of its layout differences concern a
+field is decided per field (:func:`recognizer.states.warnings_touching`,
+:func:`recognizer.states.layout_reasons`); ``pages.odd_layout`` only says that
+the page's layout differs somewhere, so that pages matching the batch cost
+no layout work.
 
 Each is called inside a write transaction of :class:`recognizer.batch.store.Batch`.
 """
@@ -19,7 +29,8 @@ import functools
 import json
 import sqlite3
 from collections import defaultdict
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 from recognizer.forms.template import Template
@@ -28,14 +39,21 @@ from recognizer.forms.values import check_page
 from recognizer.reading.page import UNREADABLE_MARK, field_value
 from recognizer.states import (
     State,
+    check_field,
     common_layout,
     counted_box,
     digit_to_check,
-    field_reasons,
+    field_level,
     field_state,
+    layout_reasons,
+    warnings_touching,
 )
 
-__all__ = ["refresh_states", "recheck_rules", "refresh_layout", "threshold"]
+__all__ = ["FieldCheck", "field_checks", "fields_to_check_at", "refresh_states", "recheck_rules", "refresh_layout",
+           "threshold"]
+
+#: A read query: ``(sql, params) -> rows`` (``Batch.rows``, or a connection's execute-and-fetch).
+Query = Callable[[str, Sequence[Any]], list[sqlite3.Row]]
 
 _OPEN = (State.READ.value, State.TO_CHECK.value)
 
@@ -98,24 +116,97 @@ def refresh_states(
         where = f"({where}) OR f.id IN ({','.join('?' * len(ruled))})"
         params = [*params, *ruled]
         boxes = _box_rows(conn, where, params)
+    checks = field_checks(_query(conn), where, params, threshold=limit)
     states = []
-    for f in conn.execute(
-        f"SELECT f.id, f.gap, f.doubts, f.rule_problems, f.resolution, f.state, p.warnings, p.odd_layout "
-        f"FROM fields f JOIN pages p ON p.id = f.page_id WHERE {where}",
-        params,
-    ):
-        flagged = bool(field_reasons(
-            gap=bool(f["gap"]), box_doubts=json.loads(f["doubts"]), rule_problems=json.loads(f["rule_problems"]),
-            page_warnings=json.loads(f["warnings"]), odd_layout=bool(f["odd_layout"]),
-        ))
+    for f in conn.execute(f"SELECT f.id, f.resolution, f.state FROM fields f WHERE {where}", params):
         state = field_state(
             (d["state"] for d in boxes[f["id"]] if counted_box(d["blank"], d["state"])),
-            flagged=flagged, resolution=f["resolution"],
+            flagged=field_level(checks[f["id"]].why), resolution=f["resolution"],
         )
         if state != f["state"]:
             states.append((state.value, f["id"]))
     conn.executemany("UPDATE fields SET state = ? WHERE id = ?", states)
     return sorted({r[1] for r in values} | set(ruled) | {r[1] for r in states})
+
+
+def _query(conn: sqlite3.Connection) -> Query:
+    return lambda sql, params: conn.execute(sql, list(params)).fetchall()
+
+
+@dataclass(frozen=True)
+class FieldCheck:
+    """What the rule says about one field: its reasons (empty: nothing to check), the
+    warnings of its page that touch it, and its layout reason (None: its layout is the batch's)."""
+
+    why: tuple[str, ...]
+    page_warnings: tuple[str, ...]
+    layout: str | None
+
+
+def field_checks(query: Query, where: str = "1", params: Sequence[Any] = (), *,
+                 threshold: float | None) -> dict[int, FieldCheck]:
+    """The rule of :func:`recognizer.states.check_field` for the fields matching ``where``.
+
+    ``where`` is an SQL condition on ``fields f`` (e.g. ``"f.state = ?"``) with
+    its ``params``; ``threshold`` is the batch threshold. The readings are the
+    written boxes no person has handled (``read`` or ``to check``).
+    """
+    rows = query(
+        "SELECT f.id, f.name, f.gap, f.doubts, f.rule_problems, p.id AS page_id, p.warnings, p.layout, "
+        f"p.odd_layout, p.template FROM fields f JOIN pages p ON p.id = f.page_id WHERE {where}", params)
+    readings: dict[int, list[tuple[str, float]]] = defaultdict(list)
+    for d in query(
+        "SELECT d.field_id, d.prediction, d.confidence FROM digits d JOIN fields f ON f.id = d.field_id "
+        f"WHERE ({where}) AND NOT d.blank AND d.state IN (?, ?) ORDER BY d.field_id, d.box",
+        [*params, *_OPEN],
+    ):
+        readings[d["field_id"]].append((d["prediction"], float(d["confidence"])))
+    commons = common_layouts(query) if any(r["odd_layout"] for r in rows) else {}
+    by_page: dict[int, dict[str, str]] = {}
+    checks = {}
+    for r in rows:
+        layout = None
+        if r["odd_layout"]:
+            if r["page_id"] not in by_page:
+                by_page[r["page_id"]] = layout_reasons(r["layout"], commons.get(r["template"]))
+            layout = by_page[r["page_id"]].get(r["name"])
+        doubts, warnings = json.loads(r["doubts"]), json.loads(r["warnings"])
+        mine = readings[r["id"]]
+        why = check_field(mine, threshold, gap=bool(r["gap"]), box_doubts=doubts,
+                          rule_problems=json.loads(r["rule_problems"]), page_warnings=warnings, layout=layout)
+        digits = [c for p, c in mine if p != UNREADABLE_MARK]
+        checks[r["id"]] = FieldCheck(
+            why, warnings_touching(warnings, box_doubts=doubts, confidences=digits, threshold=threshold), layout)
+    return checks
+
+
+def fields_to_check_at(query: Query, threshold: float | None) -> int:
+    """How many fields would be to check with ``threshold``, without applying it (a preview
+    for the strictness dialog: the rule as :func:`refresh_states` applies it, reviews kept)."""
+    checks = field_checks(query, threshold=threshold)
+    digits: dict[int, list[str]] = defaultdict(list)
+    for d in query("SELECT field_id, blank, prediction, confidence, state FROM digits", ()):
+        if d["state"] in _OPEN and not d["blank"]:
+            digits[d["field_id"]].append(
+                State.TO_CHECK if digit_to_check(d["prediction"], d["confidence"], threshold) else State.READ)
+        elif counted_box(d["blank"], d["state"]):
+            digits[d["field_id"]].append(d["state"])
+    return sum(
+        field_state(digits[f["id"]], flagged=field_level(checks[f["id"]].why), resolution=f["resolution"])
+        == State.TO_CHECK
+        for f in query("SELECT id, resolution FROM fields", ())
+    )
+
+
+def common_layouts(query: Query) -> dict[str | None, str]:
+    """The batch's layout for each template (None: pages whose boxes were found), see
+    :func:`recognizer.states.common_layout`."""
+    tallies: dict[str | None, list[tuple[str, int, int]]] = defaultdict(list)
+    for template, layout, pages, first in query(
+            "SELECT template, layout, COUNT(*), MIN(id) FROM pages WHERE layout IS NOT NULL "
+            "GROUP BY template, layout", ()):
+        tallies[template].append((layout, pages, first))
+    return {template: common_layout(t) for template, t in tallies.items()}  # type: ignore[misc]
 
 
 def _box_rows(conn: sqlite3.Connection, where: str, params: Sequence[Any]) -> dict[int, list[sqlite3.Row]]:
@@ -198,21 +289,33 @@ def _review_texts(field_row: sqlite3.Row, digits: Sequence[sqlite3.Row], n: int)
 
 
 def refresh_layout(conn: sqlite3.Connection) -> list[int]:
-    """Flag the pages whose layout differs from the batch's most common one.
+    """Mark the pages whose layout differs from the batch's (per template) and re-flag them.
 
-    Call inside a write transaction. Returns the ids of the pages whose flag changed.
+    Call inside a write transaction. The pages re-flagged are those whose mark
+    changed and, where the batch's layout itself changed (another layout
+    became the most common), every page that differs from it: which of their
+    fields differ depends on it. Returns their ids, in id order.
     """
-    common = common_layout(
-        (r[0], r[1], r[2]) for r in conn.execute(
-            "SELECT layout, COUNT(*), MIN(id) FROM pages WHERE layout IS NOT NULL GROUP BY layout")
-    )
-    if common is None:
+    commons = common_layouts(_query(conn))
+    if not commons:
         return []
-    changed = [r[0] for r in conn.execute(
-        "SELECT id FROM pages WHERE layout IS NOT NULL AND odd_layout != (layout != ?)", (common,))]
-    if changed:
-        conn.executemany(
-            "UPDATE pages SET odd_layout = (layout != ?) WHERE id = ?", [(common, i) for i in changed]
-        )
-        refresh_states(conn, page_ids=changed)
-    return changed
+    pages = conn.execute("SELECT id, template, layout, odd_layout FROM pages WHERE layout IS NOT NULL "
+                         "ORDER BY id").fetchall()
+    # before this call, the first page not marked in each template's group had the batch's layout then
+    before: dict[str | None, str] = {}
+    for p in pages:
+        if not p["odd_layout"]:
+            before.setdefault(p["template"], p["layout"])
+    moved = {t for t, layout in before.items() if commons.get(t) != layout}
+    marks, again = [], []
+    for p in pages:
+        odd = p["layout"] != commons[p["template"]]
+        if odd != bool(p["odd_layout"]):
+            marks.append((int(odd), p["id"]))
+            again.append(p["id"])
+        elif odd and p["template"] in moved:
+            again.append(p["id"])
+    conn.executemany("UPDATE pages SET odd_layout = ? WHERE id = ?", marks)
+    if again:
+        refresh_states(conn, page_ids=again)
+    return again

@@ -13,6 +13,7 @@ import json
 from dataclasses import dataclass
 
 from recognizer.batch.edits import ActionRow
+from recognizer.batch.flags import FieldCheck, field_checks
 from recognizer.batch.queries import BoxEdges, decode_boxes
 from recognizer.batch.store import Batch
 from recognizer.states import NOT_A_DIGIT_MARK, State
@@ -70,12 +71,17 @@ def digit_row(batch: Batch, digit_id: int) -> DigitRow | None:
 
 @dataclass(frozen=True)
 class FieldToCheck:
-    """A field in state ``to check``, with where it is and the inputs of its reasons.
+    """A field in state ``to check``, with where it is and why.
 
     ``lowest`` is the lowest confidence of its written boxes (None: none);
     ``marks`` and ``unsure`` count its boxes in state ``to check`` read as
-    "not a digit" and as a digit; ``box_doubts``, ``rule_problems`` and
-    ``page_warnings`` are the stored lists.
+    "not a digit" and as a digit; ``box_doubts`` and ``rule_problems`` are
+    the stored lists; ``page_warnings`` are the warnings of its page that can
+    affect this field and ``odd_layout`` says whether its page's layout puts
+    this field in doubt; ``why`` is the rule's list of reasons
+    (:func:`recognizer.batch.flags.field_checks`, the call behind the stored
+    state), read just after the rows (empty for a field another thread
+    flagged in between).
     """
 
     field_id: int
@@ -94,6 +100,7 @@ class FieldToCheck:
     lowest: float | None
     marks: int
     unsure: int
+    why: tuple[str, ...] = ()
 
 
 def fields_to_check(batch: Batch) -> list[FieldToCheck]:
@@ -102,7 +109,7 @@ def fields_to_check(batch: Batch) -> list[FieldToCheck]:
     rows = batch.rows(
         """
         SELECT f.id, f.name, f.position, f.value, f.read_value, f.gap, f.doubts, f.rule_problems, p.page,
-               p.warnings, p.odd_layout, fl.path, fl.id AS file_id,
+               fl.path, fl.id AS file_id,
                (SELECT MIN(d.confidence) FROM digits d WHERE d.field_id = f.id AND NOT d.blank) AS lowest,
                (SELECT COUNT(*) FROM digits d WHERE d.field_id = f.id AND d.state = ?
                     AND d.prediction = ?) AS marks,
@@ -113,12 +120,15 @@ def fields_to_check(batch: Batch) -> list[FieldToCheck]:
         """,
         (to_check, mark, to_check, mark, to_check),
     )
+    # the reasons are read right after the rows; a field another thread flagged in between has none yet
+    checks = field_checks(batch.rows, "f.state = ?", (to_check,), threshold=batch.settings.threshold)
+    none = FieldCheck((), (), None)
     return [
         FieldToCheck(
             r["id"], r["file_id"], r["path"], r["page"], r["name"], r["position"], r["value"], r["read_value"],
             bool(r["gap"]), tuple(json.loads(r["doubts"])), tuple(json.loads(r["rule_problems"])),
-            tuple(json.loads(r["warnings"])), bool(r["odd_layout"]), r["lowest"], int(r["marks"]),
-            int(r["unsure"]),
+            checks.get(r["id"], none).page_warnings, checks.get(r["id"], none).layout is not None, r["lowest"],
+            int(r["marks"]), int(r["unsure"]), checks.get(r["id"], none).why,
         )
         for r in rows
     ]

@@ -67,6 +67,7 @@ from recognizer.forms.template_file import template_from_json, template_to_json
 
 __all__ = [
     "APPLICATION_ID",
+    "FLAG_RULE",
     "FORMAT_NAME",
     "SUFFIX",
     "Batch",
@@ -84,6 +85,9 @@ FORMAT_NAME = "inkcount-batch"
 APPLICATION_ID = int.from_bytes(b"Inkc", "big")
 _SQLITE_HEADER = b"SQLite format 3\x00"
 _PNG_LEVEL = 3
+#: Version of the flagging rule of :mod:`recognizer.states` (2: the value as a whole, and page
+#: warnings and layouts only for the fields they concern).
+FLAG_RULE = 2
 _IN_USE = "is in use by another Inkcount window or command"
 
 
@@ -128,6 +132,18 @@ class BatchSettings:
     the model's calibration for ``target_error``, unless set by hand).
     ``threshold_source`` is ``"target"`` (follows the model and the target)
     or ``"manual"``.
+
+    Learning during the batch (:mod:`recognizer.learning`): ``learning`` turns
+    it on or off; a round runs once ``learning_every`` more digits were
+    checked (corrected or confirmed) than at the last round
+    (``learned_at``); ``learning_rounds`` counts the rounds run (accepted or
+    refused) and ``learning_last`` keeps what the last one did (a
+    :class:`recognizer.learning.LearningRound` as JSON). The learned models
+    are files next to the batch; ``model_path`` names the one in use.
+
+    ``flag_rule`` is the version of the rule for "to check"
+    (:mod:`recognizer.states`) the stored states follow: opening a batch
+    flagged by an older rule for writing flags it again (:data:`FLAG_RULE`).
     """
 
     threshold: float | None = None
@@ -136,6 +152,12 @@ class BatchSettings:
     model_path: str | None = None
     model_version: str | None = None
     pdf_dpi: float | None = None
+    learning: bool = True
+    learning_every: int = 300
+    learned_at: int = 0
+    learning_rounds: int = 0
+    learning_last: dict[str, Any] | None = None
+    flag_rule: int = 1
 
 
 # --------------------------------------------------------------------------- helpers
@@ -217,6 +239,7 @@ class Batch:
                     "INSERT INTO inkcount_meta (key, value) VALUES (?, ?)",
                     [("format", FORMAT_NAME), ("created", timestamp()), ("created_by", f"inkcount {__version__}")],
                 )
+                conn.execute("INSERT INTO settings (key, value) VALUES ('flag_rule', ?)", (json.dumps(FLAG_RULE),))
         except BaseException:
             lock.release()
             raise
@@ -256,7 +279,17 @@ class Batch:
             if lock:
                 lock.release()
             raise
-        return cls(path, conn, lock)
+        batch = cls(path, conn, lock)
+        try:
+            if not read_only and batch.settings.flag_rule < FLAG_RULE:
+                with batch.transaction() as conn:  # flagged by an older rule: flag it again, once
+                    refresh_layout(conn)
+                    refresh_states(conn)
+                    batch.update_settings(conn, flag_rule=FLAG_RULE)
+        except BaseException:
+            batch.close()
+            raise
+        return batch
 
     def close(self) -> None:
         """Close the file (checkpointing the write-ahead log) and release the lock."""

@@ -175,7 +175,7 @@ def _print_list(batch: Batch) -> None:
         rows = [["file", "page", "field", "value read", "lowest confidence", "why"]]
         rows += [
             [i.file, str(i.page), i.field, i.read or "(empty)",
-             "" if i.confidence is None else f"{i.confidence:.3f}", ", ".join(i.why)]
+             "" if i.confidence is None else f"{i.confidence:.3f}", i.words]
             for i in items
         ]
         print(_table(rows))

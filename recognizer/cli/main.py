@@ -30,7 +30,7 @@ from recognizer.reading.values_csv import DigitsWriter, ValuesTable
 from recognizer.digits.model import ModelFileError, load_model
 from recognizer.reading.stream import ReadSettings, read_scans
 from recognizer.reading.page import PageRead
-from recognizer.states import DEFAULT_TARGET_ERROR
+from recognizer.states import DEFAULT_TARGET_ERROR, REASON_WORDS, Reason
 from recognizer.review.strictness import set_target_error, set_threshold
 from recognizer.scans.files import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, ScanProblem, count_pages, list_scans
 from recognizer.forms.template_file import TemplateFileError, load_template
@@ -151,11 +151,24 @@ class _Tally:
             self.digits_out.add_page(result)
 
     def summary(self) -> str:
-        return (
+        fields = sum(map(len, self.table.to_check()))
+        share = f" ({fields / self.fields:.0%} of the fields)" if self.fields else ""
+        lines = [
             f"Read {self.pages} page(s): {self.fields} fields, {self.digits} digits. "
-            f"{self.doubtful} digit(s) to check (confidence below {self.threshold:.3f}, or not a digit); "
-            f"{sum(map(len, self.table.to_check()))} field(s) to check. {len(self.problems)} problem(s)."
-        )
+            f"{fields} field(s) to check{share}; {self.doubtful} digit(s) to check (confidence below "
+            f"{self.threshold:.3f}, or not a digit). {len(self.problems)} problem(s)."
+        ]
+        counts = self.table.reason_counts()
+        if counts:
+            lines.append("Why fields are to check (a field may have several reasons):")
+            lines += [f"  {n:5d}  {_reason_words(reason)}" for reason, n in counts.most_common()]
+        return "\n".join(lines)
+
+
+def _reason_words(reason: str) -> str:
+    if reason in REASON_WORDS:
+        return REASON_WORDS[Reason(reason)]
+    return "a template rule is broken" if reason.startswith("rule ") else "flagged"
 
 
 def run_read(args: argparse.Namespace) -> int:

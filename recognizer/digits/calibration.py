@@ -118,7 +118,13 @@ def with_offset(members: list, offset: float) -> list:
 
 
 def fit_offset_and_temperature(
-    members: list, digits: np.ndarray, labels: np.ndarray, marks: np.ndarray, *, prior: float
+    members: list,
+    digits: np.ndarray,
+    labels: np.ndarray,
+    marks: np.ndarray,
+    *,
+    prior: float,
+    preprocessing: tuple[str, ...] | None = None,
 ) -> tuple[float, float]:
     """Not-a-digit logit offset and temperature by maximum likelihood on validation data.
 
@@ -139,6 +145,8 @@ def fit_offset_and_temperature(
         Not-a-digit marks (:func:`recognizer.digits.marks.not_digit_marks`).
     prior : float
         Expected share of not-a-digit marks among written boxes, 0 < prior < 1.
+    preprocessing : tuple of str, optional
+        Per member (``DigitModel.preprocessing``); None: every member deskews.
 
     Returns
     -------
@@ -149,12 +157,22 @@ def fit_offset_and_temperature(
     cells = np.concatenate([digits, marks])
     y = np.concatenate([labels, np.full(len(marks), NOT_A_DIGIT)]).astype(np.int64)
     w = np.concatenate([np.full(len(digits), (1 - prior) / len(digits)), np.full(len(marks), prior / len(marks))])
+    # Members' logits once; the offset only lowers the not-a-digit logit of each.
+    logits = DigitModel(members=members, preprocessing=preprocessing).member_logits(cells)
+    shift = np.zeros(NOT_A_DIGIT + 1)
+    shift[NOT_A_DIGIT] = 1.0
     best = (np.inf, 0.0, 1.0)
     for offset in OFFSET_GRID:
-        proba = DigitModel(members=with_offset(members, float(offset))).predict_proba(cells)
+        proba = np.mean([_softmax(z - float(offset) * shift) for z in logits], axis=0)
         t, nll = _fit_temperature(proba, y, w)
         best = min(best, (nll, float(offset), t))
     return best[1], best[2]
+
+
+def _softmax(z: np.ndarray) -> np.ndarray:
+    z = z - z.max(axis=1, keepdims=True)
+    e = np.exp(z)
+    return e / e.sum(axis=1, keepdims=True)
 
 
 def residual_curve(conf: np.ndarray, correct: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -258,7 +276,7 @@ def calibrate(
     dict for the model metadata: method, offset, temperature, validation figures, curve fit.
     """
     offset, temperature = fit_offset_and_temperature(
-        model.members, digits, labels, marks, prior=settings.not_a_digit_prior
+        model.members, digits, labels, marks, prior=settings.not_a_digit_prior, preprocessing=model.preprocessing
     )
     model.members = with_offset(model.members, offset)
     model.temperature = temperature

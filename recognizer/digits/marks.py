@@ -14,7 +14,7 @@ letters such as O, I, S, Z, B, G, C, P, U, V, N, Y.  Measured: with those in
 the training marks, about 1 % of real digits were eaten by the eleventh class.
 
 Not to be confused with the stray marks of the demo forms
-(:func:`recognizer.synth.handwriting.draw_stray_mark`): one small dot, dash or
+(:func:`recognizer.digits.handwriting.draw_stray_mark`): one small dot, dash or
 smudge that must leave a box *blank* (it never reaches the model), whereas
 every mark here, the ``"stray"`` kind of scattered dots and ticks included,
 is written ink the model must call not-a-digit.

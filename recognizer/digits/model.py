@@ -3,9 +3,10 @@
 The model reads one handwritten character per cell and answers with
 probabilities for eleven classes: the digits ``"0"`` .. ``"9"`` and
 ``"not_a_digit"`` (scribbles, crossed-out digits, stray marks, left-over box
-lines).  It is a small ensemble of MLPs (ReLU hidden layers, softmax output)
-whose averaged probabilities are calibrated by temperature scaling
-(Guo et al. 2017).  Only numpy is needed here; training and calibration live
+lines).  It is a small committee of MLPs (ReLU hidden layers, softmax
+output), each reading the cell prepared its own way (moment-deskewed or as
+it is, :data:`MEMBER_PREPROCESSING`), whose averaged probabilities are
+calibrated by temperature scaling (Guo et al. 2017).  Only numpy is needed here; training and calibration live
 in :mod:`recognizer.digits.training` and :mod:`recognizer.digits.calibration`
 (scikit-learn).
 
@@ -31,6 +32,11 @@ One ``.npz`` archive, read with ``np.load(path, allow_pickle=False)``:
   training data and provenance, training settings, evaluation figures,
   creation time, library versions and ``weights_sha256`` (a digest of every
   other array, checked on load so an altered file is refused).
+
+Format version 3 adds ``member_preprocessing`` to the metadata: one entry of
+:data:`MEMBER_PREPROCESSING` per ensemble member (checked on load: a list of
+known names, as long as the ensemble).  Version 2 files have no such entry;
+every member of theirs reads deskewed cells, and they still load.
 """
 
 from __future__ import annotations
@@ -51,11 +57,16 @@ CLASSES: tuple[str, ...] = tuple(str(d) for d in range(10)) + ("not_a_digit",)
 NOT_A_DIGIT: int = 10
 
 FORMAT_NAME = "inkcount-digit-model"
-FORMAT_VERSION = 2
+FORMAT_VERSION = 3
 CELL_SIZE = 28
+#: How an ensemble member prepares a cell before its first layer (metadata ``member_preprocessing``).
+MEMBER_PREPROCESSING: dict[str, str] = {
+    "deskew": "moment deskew: shear rows about the centre of mass so that mu11 = 0",
+    "none": "the cell as it is",
+}
 PREPROCESSING = (
     "clip to 0..1 (white ink on black, MNIST layout 28x28)",
-    "moment deskew: shear rows about the centre of mass so that mu11 = 0",
+    "per member (member_preprocessing): " + "; ".join(f"{k} = {v}" for k, v in MEMBER_PREPROCESSING.items()),
     "flatten row-major to 784 values",
 )
 MNIST_CREDIT = (
@@ -97,6 +108,35 @@ def _digest(arrays: dict[str, np.ndarray]) -> str:
     return h.hexdigest()
 
 
+def member_features(cells: np.ndarray, kinds: set[str] | tuple[str, ...] = ("deskew",)) -> dict[str, np.ndarray]:
+    """The first-layer input of the members, per kind of :data:`MEMBER_PREPROCESSING`.
+
+    Parameters
+    ----------
+    cells : ndarray, shape (n, 28, 28)
+        Ink in 0..1, MNIST layout.
+    kinds : iterable of str
+        Which preparations to make.
+
+    Returns
+    -------
+    dict kind -> ndarray, float32, shape (n, 784) (row-major, values 0..1).
+    """
+    a = np.asarray(cells)
+    if a.ndim != 3 or a.shape[1:] != (CELL_SIZE, CELL_SIZE):
+        raise ValueError(f"cells must have shape (n, 28, 28), got {a.shape}")
+    out = {}
+    for kind in kinds:
+        if kind == "deskew":
+            prepared = deskew(a)
+        elif kind == "none":
+            prepared = np.clip(a.astype(np.float32, copy=False), 0.0, 1.0)
+        else:
+            raise ValueError(f"unknown member preprocessing {kind!r}; known: {sorted(MEMBER_PREPROCESSING)}")
+        out[kind] = prepared.reshape(len(a), CELL_SIZE * CELL_SIZE)
+    return out
+
+
 def _monotone_residual(residual: np.ndarray) -> np.ndarray:
     """Residual error made non-increasing in the threshold (max over higher thresholds)."""
     return np.maximum.accumulate(residual[::-1])[::-1]
@@ -124,6 +164,9 @@ class DigitModel:
         black) and their (n,) uint8 labels 0..9.
     validation_images, validation_labels : ndarray or None
         The validation digits of the calibration, same types.
+    preprocessing : tuple of str or None
+        Per member, a key of :data:`MEMBER_PREPROCESSING`; None means
+        ``"deskew"`` for every member (as in format-2 files).
     """
 
     members: list[list[tuple[np.ndarray, np.ndarray]]]
@@ -136,6 +179,32 @@ class DigitModel:
     replay_labels: np.ndarray | None = None
     validation_images: np.ndarray | None = None
     validation_labels: np.ndarray | None = None
+    preprocessing: tuple[str, ...] | None = None
+    _f32: dict[int, tuple[np.ndarray, np.ndarray]] = field(default_factory=dict, repr=False, compare=False)
+
+    def _float32(self, a: np.ndarray) -> np.ndarray:
+        """``a`` as float32; float16 weights are converted once and kept (keyed by the array itself)."""
+        if a.dtype == np.float32:
+            return a
+        held = self._f32.get(id(a))
+        if held is None or held[0] is not a:
+            held = (a, a.astype(np.float32))
+            self._f32[id(a)] = held
+            if len(self._f32) > 64 * max(len(self.members), 1):  # members replaced many times: start afresh
+                self._f32 = {id(a): held}
+        return held[1]
+
+    @property
+    def member_preprocessing(self) -> tuple[str, ...]:
+        """How each member prepares a cell (keys of :data:`MEMBER_PREPROCESSING`)."""
+        if self.preprocessing is None:
+            return ("deskew",) * len(self.members)
+        if len(self.preprocessing) != len(self.members):
+            raise ValueError(f"{len(self.preprocessing)} preprocessing entries for {len(self.members)} members")
+        unknown = set(self.preprocessing) - set(MEMBER_PREPROCESSING)
+        if unknown:
+            raise ValueError(f"unknown member preprocessing {sorted(unknown)}")
+        return tuple(self.preprocessing)
 
     @property
     def version(self) -> str:
@@ -158,22 +227,32 @@ class DigitModel:
         ndarray, float64, shape (n, 11)
             Rows sum to 1; column ``NOT_A_DIGIT`` is "not a digit".
         """
-        a = np.asarray(cells)
-        if a.ndim != 3 or a.shape[1:] != (CELL_SIZE, CELL_SIZE):
-            raise ValueError(f"cells must have shape (n, 28, 28), got {a.shape}")
-        features = deskew(a).reshape(len(a), CELL_SIZE * CELL_SIZE)
-        return self._calibrate(self._ensemble_proba(features))
+        return self._calibrate(self._ensemble_proba(cells))
 
-    def _ensemble_proba(self, features: np.ndarray) -> np.ndarray:
-        """Mean of the members' softmax outputs, (n, 784) -> (n, 11) float64."""
-        total = np.zeros((len(features), len(self.classes)))
-        for layers in self.members:
-            x = features.astype(np.float32, copy=False)
+    def member_logits(self, cells: np.ndarray) -> list[np.ndarray]:
+        """Each member's output logits (before softmax), float64 (n, 11) per member.
+
+        Parameters
+        ----------
+        cells : ndarray, shape (n, 28, 28)
+            Ink in 0..1, MNIST layout.
+        """
+        features = member_features(cells, set(self.member_preprocessing))
+        logits = []
+        for layers, kind in zip(self.members, self.member_preprocessing):
+            x = features[kind]
             for j, (w, b) in enumerate(layers):
-                x = x @ w.astype(np.float32, copy=False) + b.astype(np.float32, copy=False)
+                x = x @ self._float32(w) + self._float32(b)
                 if j < len(layers) - 1:
                     np.maximum(x, 0.0, out=x)
-            total += _softmax(x.astype(np.float64))
+            logits.append(x.astype(np.float64))
+        return logits
+
+    def _ensemble_proba(self, cells: np.ndarray) -> np.ndarray:
+        """Mean of the members' softmax outputs, (n, 28, 28) -> (n, 11) float64."""
+        total = np.zeros((len(cells), len(self.classes)))
+        for logits in self.member_logits(cells):
+            total += _softmax(logits)
         return total / max(len(self.members), 1)
 
     def _calibrate(self, proba: np.ndarray) -> np.ndarray:
@@ -243,6 +322,7 @@ class DigitModel:
             preprocessing=list(PREPROCESSING),
             temperature=float(self.temperature),
             ensemble=[[list(np.shape(w)) for w, _ in layers] for layers in self.members],
+            member_preprocessing=list(self.member_preprocessing),
             weights_sha256=_digest(arrays),
         )
         meta.setdefault("created", timestamp())
@@ -297,8 +377,9 @@ def load_model(path: str | Path | None = None) -> DigitModel:
         temperature = float(meta["temperature"])
     except (KeyError, TypeError, ValueError):
         raise ModelFileError(path, "metadata has no valid 'temperature'") from None
-    if not temperature > 0:
-        raise ModelFileError(path, f"temperature must be > 0, got {temperature}")
+    if not 0 < temperature < np.inf:
+        raise ModelFileError(path, f"temperature must be a finite number > 0, got {temperature}")
+    preprocessing = _read_member_preprocessing(path, meta, len(members))
     return DigitModel(
         members=members,
         temperature=temperature,
@@ -306,8 +387,23 @@ def load_model(path: str | Path | None = None) -> DigitModel:
         curve_residual=arrays["calib_residual"],
         metadata=meta,
         classes=tuple(meta["classes"]),
+        preprocessing=preprocessing,
         **{name: arrays.get(name) for name in _DIGIT_ARRAYS},
     )
+
+
+def _read_member_preprocessing(path: Path, meta: dict[str, Any], n_members: int) -> tuple[str, ...]:
+    """``member_preprocessing`` of a format-3 file, checked; deskew for every member of a format-2 file."""
+    if meta["format_version"] < 3:
+        return ("deskew",) * n_members
+    entry = meta.get("member_preprocessing")
+    if not isinstance(entry, list) or len(entry) != n_members:
+        raise ModelFileError(path, f"'member_preprocessing' must list one entry per member ({n_members}), "
+                             f"got {entry!r}")
+    for kind in entry:
+        if not isinstance(kind, str) or kind not in MEMBER_PREPROCESSING:
+            raise ModelFileError(path, f"unknown member preprocessing {kind!r}; known: {sorted(MEMBER_PREPROCESSING)}")
+    return tuple(entry)
 
 
 def _check_digit_set(path: Path, arrays: dict[str, np.ndarray], kind: str) -> None:
@@ -349,7 +445,7 @@ def _read_metadata(path: Path, entry: np.ndarray | None) -> dict[str, Any]:
     if not isinstance(meta, dict) or meta.get("format") != FORMAT_NAME:
         raise ModelFileError(path, f"not an {FORMAT_NAME} file")
     version = meta.get("format_version")
-    if not isinstance(version, int):
+    if not isinstance(version, int) or isinstance(version, bool) or version < 1:
         raise ModelFileError(path, "metadata has no integer 'format_version'")
     if version > FORMAT_VERSION:
         raise ModelFileError(

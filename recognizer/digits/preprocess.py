@@ -50,13 +50,14 @@ def to_model_input(ink: np.ndarray) -> np.ndarray:
     peak = float(ink.max()) if ink.size else 0.0
     if peak <= 0:
         return out
-    ys, xs = np.nonzero(ink > 0.05 * peak)
-    glyph = np.clip(ink[ys.min():ys.max() + 1, xs.min():xs.max() + 1] / peak, 0.0, 1.0)
-    h, w = glyph.shape
+    x, y, w, h = cv2.boundingRect((ink > 0.05 * peak).astype(np.uint8))
+    glyph = ink[y:y + h, x:x + w] / peak
+    np.minimum(glyph, 1.0, out=glyph)
+    np.maximum(glyph, 0.0, out=glyph)
     scale = _FIT / max(h, w)
     size = (max(1, int(round(w * scale))), max(1, int(round(h * scale))))
     glyph = cv2.resize(glyph, size, interpolation=cv2.INTER_AREA if scale < 1 else cv2.INTER_LINEAR)
-    glyph = np.clip(glyph, 0.0, None)
+    np.maximum(glyph, 0.0, out=glyph)
     glyph /= max(float(glyph.max()), 1e-6)
     total = float(glyph.sum())
     cy = float((glyph.sum(axis=1) * np.arange(glyph.shape[0])).sum()) / total

@@ -64,8 +64,7 @@ from threadpoolctl import threadpool_limits
 from recognizer.digits.augment import augment
 from recognizer.digits.calibration import calibrate, with_offset
 from recognizer.digits.marks import not_digit_marks
-from recognizer.digits.model import NOT_A_DIGIT, DigitModel, timestamp
-from recognizer.digits.preprocess import deskew
+from recognizer.digits.model import NOT_A_DIGIT, DigitModel, member_features, timestamp
 from recognizer.digits.training import TrainSettings, export_member
 
 Progress = Callable[[str], None]
@@ -164,8 +163,10 @@ def _split(labels: np.ndarray, fraction: float, rng: np.random.Generator) -> tup
 
 
 def _mix(new: np.ndarray, new_labels: np.ndarray, replay: np.ndarray, replay_labels: np.ndarray,
-         settings: RetrainSettings, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
-    """New samples + copies, replay digits + copies, not-a-digit marks; deskewed, flattened, shuffled."""
+         settings: RetrainSettings, rng: np.random.Generator, preprocessing: str = "deskew",
+         ) -> tuple[np.ndarray, np.ndarray]:
+    """New samples + copies, replay digits + copies, not-a-digit marks; prepared as the member
+    does (``preprocessing``), flattened, shuffled."""
     digits = new_labels != NOT_A_DIGIT
     parts = [new] + [augment(new[digits], rng) for _ in range(settings.new_copies)]
     ys = [new_labels] + [new_labels[digits]] * settings.new_copies
@@ -174,7 +175,7 @@ def _mix(new: np.ndarray, new_labels: np.ndarray, replay: np.ndarray, replay_lab
     n_marks = int(round(settings.junk_share * sum(len(y) for y in ys)))
     parts.append(not_digit_marks(n_marks, rng=rng, digits=replay))
     ys.append(np.full(n_marks, NOT_A_DIGIT))
-    x = deskew(np.concatenate(parts)).reshape(-1, 784)
+    x = member_features(np.concatenate(parts), (preprocessing,))[preprocessing]
     y = np.concatenate(ys).astype(np.int64)
     order = rng.permutation(len(y))
     return x[order], y[order]
@@ -258,21 +259,23 @@ def retrain(
     root = np.random.SeedSequence(settings.seed)
     split_ss, calib_ss, *member_ss = root.spawn(2 + len(parent.members))
     tr, ck = _split(samples.labels, settings.check_fraction, np.random.default_rng(split_ss))
-    base_settings = TrainSettings(**_known_settings(parent.metadata.get("training_settings", {})))
+    base_settings = TrainSettings.from_metadata(parent.metadata.get("training_settings", {}))
     offset = float(parent.metadata.get("calibration", {}).get("not_a_digit_offset", 0.0))
     replay = parent.replay_images.astype(np.float32) / 255.0
     replay_labels = parent.replay_labels.astype(np.int64)
     say(f"{len(tr)} new samples to learn from, {len(ck)} held back; {len(replay_labels)} replay digits")
     members = []
     with threadpool_limits(limits=settings.threads):
-        for k, (layers, ss) in enumerate(zip(with_offset(parent.members, -offset), member_ss)):
+        for k, (layers, kind, ss) in enumerate(zip(with_offset(parent.members, -offset),
+                                                   parent.member_preprocessing, member_ss)):
             rng = np.random.default_rng(ss)
-            x, y = _mix(samples.cells[tr], samples.labels[tr], replay, replay_labels, settings, rng)
+            x, y = _mix(samples.cells[tr], samples.labels[tr], replay, replay_labels, settings, rng, kind)
             clf = _fine_tune(layers, x, y, settings, seed=int(rng.integers(2**31 - 1)))
             members.append(export_member(clf, str(np.asarray(layers[0][0]).dtype)))
             say(f"member {k + 1}/{len(parent.members)}: {len(y)} samples, loss {clf.loss_:.4f}")
     model = DigitModel(members=members, replay_images=parent.replay_images, replay_labels=parent.replay_labels,
-                       validation_images=parent.validation_images, validation_labels=parent.validation_labels)
+                       validation_images=parent.validation_images, validation_labels=parent.validation_labels,
+                       preprocessing=parent.preprocessing)
     val = parent.validation_images.astype(np.float32) / 255.0
     val_labels = parent.validation_labels.astype(np.int64)
     check_digits = samples.labels[ck] != NOT_A_DIGIT
@@ -311,15 +314,6 @@ def retrain(
                              "scikit-learn": sklearn.__version__},
     }
     return RetrainResult(model=model, accepted=not reasons, reasons=reasons, figures=figures)
-
-
-def _known_settings(stored: dict[str, Any]) -> dict[str, Any]:
-    """Stored training settings restricted to the fields :class:`TrainSettings` has now."""
-    names = TrainSettings.__dataclass_fields__
-    out = {k: v for k, v in stored.items() if k in names}
-    if "hidden" in out:
-        out["hidden"] = tuple(out["hidden"])
-    return out
 
 
 def _compare(parent: DigitModel, model: DigitModel, samples: LabelledCells, tr: np.ndarray, ck: np.ndarray,

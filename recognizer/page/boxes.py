@@ -18,13 +18,21 @@ there are scaled back to the page's resolution):
    between two lines and two walls;
 2. :mod:`recognizer.page.box_rows`: which regions are digit boxes -- chains of
    regions fitted as rows of equal boxes, checked, with doubts about fields
-   whose boxes were added beyond their ends;
-3. here: the fields put in reading order and named (below), and the page
+   whose boxes were added beyond their ends.  Closed boxes side by side,
+   separate boxes with gaps and combs inside table cells (the cells are too
+   wide to be boxes) are all found so;
+3. :mod:`recognizer.page.combs`: open combs (a baseline with short ticks
+   between the digit positions, no top line), each cell between two ticks a
+   box from the baseline up to the height a closed box of that pitch would
+   have; groups on either side of a printed separator (``/``, ``:``, ``.``)
+   are fields of their own;
+4. here: the fields put in reading order and named (below), and the page
    *warnings* (lines fainter than 80 grey levels below the paper, a skew
    beyond ``max_skew_deg``).
 
 Field order
 -----------
+Every comb style alike (an open comb's boxes have the height given above).
 Rows run top to bottom: fields are taken in order of their vertical centre and
 a field joins the current row when its centre lies within half a box height
 (of the row's first field) of the row's first field's centre; within a row
@@ -48,10 +56,10 @@ from dataclasses import dataclass, field
 import cv2
 import numpy as np
 
-from recognizer.page import box_rows, ruling
+from recognizer.page import box_rows, combs, ruling
 from recognizer.page.ruling import Rect
 
-__all__ = ["MM_PER_INCH", "Box", "FieldBoxes", "BoxFinding", "as_gray_page", "find_fields"]
+__all__ = ["MM_PER_INCH", "Box", "FieldBoxes", "BoxFinding", "as_gray_page", "find_fields", "warp_like"]
 
 
 MM_PER_INCH = 25.4
@@ -140,6 +148,17 @@ class BoxFinding:
     def from_page(self, x, y):
         """Map page coordinates ``(x, y)`` (scalars or arrays) to deskewed-image coordinates."""
         return _apply(self.transform, x, y)
+
+
+#: The problem of a page on which no digit boxes were found.
+NO_BOXES = "no digit boxes found on this page"
+
+
+def warp_like(finding: BoxFinding, image: np.ndarray) -> np.ndarray:
+    """Another image of the same page (a colour layer), deskewed as ``finding.image`` was."""
+    if np.allclose(finding.transform, np.eye(2, 3)):
+        return image
+    return ruling.warp(image, finding.transform)
 
 
 def _apply(matrix: np.ndarray, x, y):
@@ -255,9 +274,10 @@ def find_fields(page: np.ndarray, *, dpi: float, min_box_mm: float = 3.5,
     lines = ruling.horizontal_lines(ink, work_px_per_mm, min_box_mm)
     rects = ruling.regions(ink, lines, work_px_per_mm, min_box_mm, max_box_mm)
     fields = box_rows.fit_fields(rects, lines, ink, work_px_per_mm, min_box_mm, max_box_mm)
+    fields = combs.add_open_combs(fields, ink, lines, work_px_per_mm, min_box_mm, max_box_mm)
     finding = BoxFinding(gray, dpi, skew, transform=transform)
     if not fields:
-        finding.problem = "no digit boxes found on this page"
+        finding.problem = NO_BOXES
         return finding
     finding.fields = _name_fields([([_scale_box(b, 1.0 / scale) for b in f], d) for f, d in fields])
     finding.warnings = ruling.line_warnings(flat, lines, paper)

@@ -50,10 +50,14 @@ __all__ = [
     "horizontal_lines",
     "ink_mask",
     "ink_step",
+    "line_segments",
     "line_warnings",
+    "max_wall_px",
     "regions",
     "rotation",
+    "runs",
     "ruled",
+    "thin_runs",
     "warp",
 ]
 
@@ -225,6 +229,28 @@ def _merge_collinear(segments: list[Rect], tol: int, max_gap: float) -> list[Rec
     return out
 
 
+def max_wall_px(px_per_mm: float) -> int:
+    """Thickest wall or line, in pixels (at least 3)."""
+    return max(3, int(round(_MAX_WALL_MM * px_per_mm)))
+
+
+def line_segments(lines: np.ndarray, px_per_mm: float, min_box_mm: float) -> list[Rect]:
+    """The straight horizontal lines of a :func:`horizontal_lines` mask, top to bottom.
+
+    Segments at most ``_MAX_WALL_MM`` thick, collinear ones less than
+    ``min_box_mm`` apart joined (a broken line), at least ``0.9 * min_box_mm``
+    long.
+    """
+    lo = 0.9 * min_box_mm * px_per_mm
+    step = max(1, int(round(_POOL_MM * px_per_mm)))
+    segments = [r for r in _segments(lines, step) if r.h <= max_wall_px(px_per_mm)]
+    segments = _merge_collinear(segments, max(1, int(round(0.3 * px_per_mm))),
+                                min_box_mm * px_per_mm)
+    segments = [r for r in segments if r.w >= lo]
+    segments.sort(key=lambda r: r.y0)
+    return segments
+
+
 def regions(ink: np.ndarray, lines: np.ndarray, px_per_mm: float, min_box_mm: float,
             max_box_mm: float) -> list[Rect]:
     """Regions between two horizontal lines and two walls, of digit box height.
@@ -243,13 +269,8 @@ def regions(ink: np.ndarray, lines: np.ndarray, px_per_mm: float, min_box_mm: fl
     lo, hi = 0.9 * min_box_mm * px_per_mm, max_box_mm * px_per_mm
     margin = max(1, int(round(_BAND_MARGIN_MM * px_per_mm)))
     band_px = max(2, int(round(LINE_BAND_MM * px_per_mm)))
-    max_wall = max(3, int(round(_MAX_WALL_MM * px_per_mm)))
-    step = max(1, int(round(_POOL_MM * px_per_mm)))
-    segments = [r for r in _segments(lines, step) if r.h <= max_wall]
-    segments = _merge_collinear(segments, max(1, int(round(0.3 * px_per_mm))),
-                                min_box_mm * px_per_mm)
-    segments = [r for r in segments if r.w >= lo]
-    segments.sort(key=lambda r: r.y0)
+    max_wall = max_wall_px(px_per_mm)
+    segments = line_segments(lines, px_per_mm, min_box_mm)
     rects = set()
     for i, top in enumerate(segments):
         for bottom in segments[i + 1:]:
@@ -282,22 +303,22 @@ def _between_walls(band: np.ndarray, max_wall: int) -> list[tuple[int, int]]:
     ends = max(1, band.shape[0] // 30)
     reach = band[:ends].any(axis=0) & band[-ends:].any(axis=0)
     reach = reach | np.roll(reach, 1) | np.roll(reach, -1)
-    wall = _thin_runs(cover >= _WALL_COVER, max_wall)
-    wall |= _thin_runs((cover >= _BROKEN_WALL_COVER) & reach, max_wall)
-    starts, stops = _runs(wall)
+    wall = thin_runs(cover >= _WALL_COVER, max_wall)
+    wall |= thin_runs((cover >= _BROKEN_WALL_COVER) & reach, max_wall)
+    starts, stops = runs(wall)
     return [(int(a), int(b)) for a, b in zip(stops[:-1], starts[1:]) if b - a >= 2]
 
 
-def _runs(flags: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def runs(flags: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Starts and stops (exclusive) of the runs of True in a 1-D bool array."""
     edges = np.flatnonzero(np.diff(np.concatenate([[0], flags.astype(np.int8), [0]])))
     return edges[0::2], edges[1::2]
 
 
-def _thin_runs(flags: np.ndarray, max_len: int) -> np.ndarray:
+def thin_runs(flags: np.ndarray, max_len: int) -> np.ndarray:
     """``flags`` with the runs longer than ``max_len`` cleared."""
     out = np.zeros_like(flags)
-    for a, b in zip(*_runs(flags)):
+    for a, b in zip(*runs(flags)):
         if b - a <= max_len:
             out[a:b] = True
     return out

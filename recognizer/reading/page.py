@@ -20,19 +20,20 @@ calls "not a digit" stands in the value as ``?``.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
 
-from recognizer.page.boxes import Box, BoxFinding, find_fields
+from recognizer.page.boxes import NO_BOXES, Box, BoxFinding, find_fields, warp_like
+from recognizer.page.dropout import DropoutLayers, split_dropout
 from recognizer.page.cells import Cell, cut_cells
 from recognizer.digits.model import CLASSES, NOT_A_DIGIT, DigitModel
 from recognizer.forms.registration import Registrar, match_templates
 from recognizer.scans.files import Page
 from recognizer.forms.template import Template
 from recognizer.forms.values import check_page
-from recognizer.states import NOT_A_DIGIT_MARK, digit_to_check, field_reasons, page_layout
+from recognizer.states import NOT_A_DIGIT_MARK, check_field, digit_to_check, layout_reasons, page_layout
 
 __all__ = ["UNREADABLE_MARK", "DigitRead", "FieldRead", "PageRead", "PageReader", "field_value", "reading_of"]
 
@@ -91,13 +92,16 @@ class FieldRead:
         return [d for d in self.written if digit_to_check(d.text, d.confidence, threshold)]
 
     def reasons(self, threshold: float | None, *, page_warnings: Sequence[str] = (),
-                odd_layout: bool = False) -> tuple[str, ...]:
-        """Why a person must look at this field (:func:`recognizer.states.field_reasons`); empty if not."""
-        doubtful = self.doubtful_digits(threshold)
-        marks = sum(d.not_a_digit for d in doubtful)
-        return field_reasons(
-            unsure_digits=len(doubtful) - marks, marks=marks, gap=self.gap, box_doubts=self.doubts,
-            rule_problems=self.rule_problems, page_warnings=page_warnings, odd_layout=odd_layout,
+                layout: str | None = None) -> tuple[str, ...]:
+        """Why a person must look at this field (:func:`recognizer.states.check_field`); empty if not.
+
+        ``page_warnings`` are all its page's warnings (the rule keeps those
+        that can affect this field); ``layout`` is its reason from
+        :func:`recognizer.states.layout_reasons`, if any.
+        """
+        return check_field(
+            ((d.text, d.confidence) for d in self.written), threshold, gap=self.gap, box_doubts=self.doubts,
+            rule_problems=self.rule_problems, page_warnings=page_warnings, layout=layout,
         )
 
     def to_check(self, threshold: float | None) -> bool:
@@ -116,7 +120,7 @@ class PageRead:
 
     ``problem`` is set (and ``fields`` empty) when no digit boxes could be
     found; ``warnings`` list doubtful things met while finding the boxes (a
-    reason to check the fields of the page, :mod:`recognizer.states`). A page read with
+    reason to check the fields of the page they can affect, :mod:`recognizer.states`). A page read with
     templates records the ``template`` that read it (its name and version,
     ``orchard_card v1``) and the ``registration_score``; a page that fits
     none of them has the problem set and ``template`` None.
@@ -142,6 +146,26 @@ class PageRead:
     def layout(self) -> str | None:
         """The page's layout (:func:`recognizer.states.page_layout`); None when no boxes were found."""
         return None if self.problem else page_layout((f.name, len(f.boxes)) for f in self.fields)
+
+    def field_reasons(self, threshold: float | None, *, common_layout: str | None = None) -> dict[str, tuple[str, ...]]:
+        """Each field's reasons to be checked (:func:`recognizer.states.check_field`), by name.
+
+        ``common_layout`` is the batch's layout for pages like this one (same
+        template, or none); None judges the page alone (no layout reasons).
+        """
+        layouts = layout_reasons(self.layout(), common_layout)
+        return {f.name: f.reasons(threshold, page_warnings=self.warnings, layout=layouts.get(f.name))
+                for f in self.fields}
+
+
+#: What a page says when its boxes cannot be seen (a dropout print scanned in black and white).
+BOXES_NOT_VISIBLE = "the digit boxes are not visible on this page: read it with its form template"
+
+
+def _bitonal(image: np.ndarray) -> bool:
+    """Only black and white (a 1-bit or fax-like capture), seen at every 4th pixel."""
+    small = image[::4, ::4]
+    return bool(np.count_nonzero((small > 16) & (small < 239)) <= 0.001 * small.size)
 
 
 def reading_of(probs: np.ndarray) -> tuple[str, float]:
@@ -197,10 +221,25 @@ class PageReader:
 
     def read(self, page: Page) -> PageRead:
         """Read one page; never raises on odd page content."""
+        layers = split_dropout(page.colour) if page.colour is not None else None
         if self.registrars:
-            return self._read_with_template(page)
-        finding = find_fields(page.image, dpi=page.dpi)
-        return self.read_finding(finding, source=page.source, page=page.page)
+            read = self._read_with_template(page)
+        elif layers is not None:
+            read = self._read_dropout(page, layers)
+        else:
+            finding = find_fields(page.image, dpi=page.dpi)
+            if finding.problem == NO_BOXES and _bitonal(page.image):
+                finding.problem = BOXES_NOT_VISIBLE
+            read = self.read_finding(finding, source=page.source, page=page.page)
+        read.warnings[:0] = page.warnings  # from the capture (a blurred or small photo)
+        return read
+
+    def _read_dropout(self, page: Page, layers: DropoutLayers) -> PageRead:
+        """Boxes found on the printed layer, digits cut from the ink layer (same deskew)."""
+        finding = find_fields(layers.printed, dpi=page.dpi)
+        ink = warp_like(finding, layers.ink)
+        shown = replace(finding, image=warp_like(finding, page.image))  # the page as scanned, for review
+        return self.read_finding(shown, source=page.source, page=page.page, ink=ink)
 
     def _read_with_template(self, page: Page) -> PageRead:
         match = match_templates(page.image, dpi=page.dpi, registrars=self.registrars)
@@ -216,8 +255,14 @@ class PageReader:
             f.typed, f.rule_problems = values[f.name].text, values[f.name].problems
         return read
 
-    def read_finding(self, finding: BoxFinding, *, source: Path, page: int) -> PageRead:
-        """Read the fields of a page whose boxes have been found."""
+    def read_finding(self, finding: BoxFinding, *, source: Path, page: int,
+                     ink: np.ndarray | None = None) -> PageRead:
+        """Read the fields of a page whose boxes have been found.
+
+        ``ink``, when given, is the page's ink alone (a dropout-colour form,
+        deskewed like ``finding.image``): the cells are cut from it, while
+        ``finding.image`` is the page kept for review.
+        """
         image = finding.image if self.keep_image else None
         if not finding:
             return PageRead(
@@ -225,7 +270,7 @@ class PageReader:
                 problem=finding.problem, warnings=list(finding.warnings), image=image,
             )
         per_field: list[list[Cell]] = [
-            cut_cells(finding.image, f.boxes, dpi=finding.dpi) for f in finding.fields
+            cut_cells(finding.image if ink is None else ink, f.boxes, dpi=finding.dpi) for f in finding.fields
         ]
         written = [c.mnist for cells in per_field for c in cells if not c.blank]
         probs = (

@@ -8,7 +8,8 @@ Values table columns: ``file, page,`` one column per field (``f01, f02, ...``
 — every field seen on any page, so pages with fewer fields leave the extra
 columns empty), then ``to_check`` (the fields of the row a person should look
 at, separated by spaces: the same rule as in a batch, :mod:`recognizer.states`,
-with the layout judged against the most common layout of the pages read) and ``problem`` (why a file or page could not be
+with the layout judged against the most common layout of the pages read with
+the same template, or without one) and ``problem`` (why a file or page could not be
 read; such rows have no values).
 
 Pages read with a form template (:mod:`recognizer.forms.template`) carry the
@@ -28,13 +29,14 @@ from __future__ import annotations
 
 import csv
 import os
+from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TextIO
 
 from recognizer.reading.page import PageRead
 from recognizer.scans.files import ScanProblem
-from recognizer.states import common_layout
+from recognizer.states import common_layout, layout_reasons
 
 __all__ = ["ValuesTable", "DigitsWriter", "field_sort_key", "open_csv", "csv_writer"]
 
@@ -65,6 +67,7 @@ class _Row:
     problem: str = ""
     template: str = ""
     rules: str = ""
+    why: Counter = field(default_factory=Counter)       # reasons of its own, counted over its fields
 
 
 class ValuesTable:
@@ -73,7 +76,8 @@ class ValuesTable:
     The rows are kept (they are short strings) because the header needs
     every field name of every page before the first row is written, and
     because a page's layout is judged against the most common layout of all
-    pages read (:func:`recognizer.states.common_layout`), as in a batch.
+    pages read with the same template or without one
+    (:func:`recognizer.states.common_layout`), as in a batch.
     """
 
     def __init__(self) -> None:
@@ -89,29 +93,41 @@ class ValuesTable:
         values = {f.name: f.output for f in page.fields}
         for name in values:
             self.fields.setdefault(name, len(self.fields))
-        flagged = [f.name for f in page.fields if f.reasons(threshold, page_warnings=page.warnings)]
+        reasons = page.field_reasons(threshold)
+        flagged = [name for name, why in reasons.items() if why]
         rules = " | ".join(f"{f.name}: {p}" for f in page.fields for p in f.rule_problems)
         self.rows.append(_Row(str(page.source), str(page.page), values, flagged, page.layout(), "",
-                              page.template or "", rules))
+                              page.template or "", rules, Counter(w for why in reasons.values() for w in why)))
 
     def add_problem(self, problem: ScanProblem) -> None:
         page = "" if problem.page is None else str(problem.page)
         self.rows.append(_Row(str(problem.source), page, problem=problem.reason))
 
-    def to_check(self) -> list[list[str]]:
-        """Per row, the fields a person must look at (:mod:`recognizer.states`)."""
-        tallies: dict[str, list[int]] = {}
+    def _layout_reasons(self) -> list[dict[str, str]]:
+        """Per row, the fields its layout puts in doubt (:func:`recognizer.states.layout_reasons`)."""
+        tallies: dict[str, dict[str, list[int]]] = {}
         for i, row in enumerate(self.rows):
             if row.layout is not None:
-                tallies.setdefault(row.layout, [0, i])[0] += 1
-        common = common_layout((layout, n, first) for layout, (n, first) in tallies.items())
+                tallies.setdefault(row.template, {}).setdefault(row.layout, [0, i])[0] += 1
+        commons = {template: common_layout((layout, n, first) for layout, (n, first) in t.items())
+                   for template, t in tallies.items()}
+        return [layout_reasons(row.layout, commons.get(row.template)) for row in self.rows]
+
+    def to_check(self) -> list[list[str]]:
+        """Per row, the fields a person must look at (:mod:`recognizer.states`), in the page's order."""
         out = []
-        for row in self.rows:
-            if row.layout is not None and row.layout != common:
-                out.append(list(row.values))  # every field: field_reasons(odd_layout=True)
-            else:
-                out.append(row.flagged)
+        for row, layout in zip(self.rows, self._layout_reasons()):
+            flagged = set(row.flagged) | set(layout)
+            out.append([name for name in row.values if name in flagged])
         return out
+
+    def reason_counts(self) -> Counter:
+        """How many fields to check each reason concerns (a field counts once per reason)."""
+        counts: Counter = Counter()
+        for row, layout in zip(self.rows, self._layout_reasons()):
+            counts.update(row.why)
+            counts.update(layout.values())
+        return counts
 
     def _names(self) -> list[str]:
         return sorted(self.fields, key=lambda n: (field_sort_key(n)[0], self.fields[n]))

@@ -1,7 +1,12 @@
 """The review queue: what is left to check in a batch, in a chosen order.
 
 Each item is a field (or, ordered by digit, a written box) in state ``to
-check`` with the reasons it is flagged (:func:`recognizer.states.field_reasons`).
+check`` with the reasons it is flagged: for a field, the reasons of the one
+rule (:func:`recognizer.states.check_field`, through
+:func:`recognizer.batch.flags.field_checks`: the same call that set its
+state); for a digit, its own (below the threshold, or not a digit). They are
+keys (:class:`recognizer.states.Reason`); :meth:`ReviewItem.words` puts them
+in a clerk's words (:func:`recognizer.states.reasons_in_words`).
 """
 
 from __future__ import annotations
@@ -13,7 +18,7 @@ from recognizer.batch.review_rows import FieldToCheck, digits_to_check, fields_t
 from recognizer.batch.store import Batch
 from recognizer.digits.model import NOT_A_DIGIT
 from recognizer.reading.page import UNREADABLE_MARK
-from recognizer.states import Reason, field_reasons
+from recognizer.states import Reason, field_reasons, reasons_in_words
 
 __all__ = ["ORDERS", "ReviewItem", "ReviewQueue"]
 
@@ -44,16 +49,21 @@ class ReviewItem:
     sort_key: tuple = field(default=(), repr=False, compare=False)
 
     @property
+    def words(self) -> str:
+        """Why it is to check, in a clerk's words."""
+        return reasons_in_words(self.why)
+
+    @property
     def ref(self) -> str:
         """``FILE:PAGE:FIELD``, as the ``inkcount review`` command takes it."""
         return f"{self.file}:{self.page}:{self.field}"
 
 
 def _field_reasons(f: FieldToCheck) -> tuple[str, ...]:
-    return field_reasons(
-        unsure_digits=f.unsure, marks=f.marks, gap=f.gap, box_doubts=f.box_doubts,
-        rule_problems=f.rule_problems, page_warnings=f.page_warnings, odd_layout=f.odd_layout,
-    )
+    if f.why:
+        return f.why
+    # to check with no reason left (a field-level decision a person has not taken): the digits' own
+    return field_reasons(unsure_digits=f.unsure, marks=f.marks)
 
 
 class ReviewQueue:
@@ -69,7 +79,8 @@ class ReviewQueue:
     unit : {"field", "digit"}, optional
         Items are fields (default) or single digits; ``order="digit"`` always
         lists digits. The digit queue holds digits to check only: fields
-        flagged for a gap, doubtful boxes, page warnings or their layout are in the field queue.
+        flagged for their value as a whole, a gap, doubtful boxes, page
+        warnings or their layout are in the field queue.
 
     The queue reads the batch each time it is asked, so it follows changes.
     Iterating it goes on from the last item handed out, skipping anything

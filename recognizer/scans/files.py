@@ -19,11 +19,14 @@ from __future__ import annotations
 import os
 import warnings
 from collections.abc import Iterable, Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
+import cv2
 import numpy as np
 from PIL import Image, ImageOps, UnidentifiedImageError
+
+from recognizer.scans.photo import PhotoRefused, flatten_photo, is_colour, undo_negative
 
 __all__ = [
     "IMAGE_SUFFIXES",
@@ -73,8 +76,17 @@ class Page:
         Scan resolution in dots per inch.
     dpi_origin : str
         Where ``dpi`` came from: ``"file"`` (the file's own metadata),
-        ``"render"`` (a PDF page drawn at that resolution) or ``"page size"``
-        (guessed from the pixel size, the file said nothing usable).
+        ``"render"`` (a PDF page drawn at that resolution), ``"page size"``
+        (guessed from the pixel size, the file said nothing usable) or
+        ``"photo"`` (a phone photo flattened to the paper size it matches,
+        :mod:`recognizer.scans.photo`).
+    warnings : list of str
+        Why the page may read badly because of how it was captured (a blurred
+        or small photo); the reader adds them to the page's warnings.
+    colour : (M, N, 3) uint8 ndarray or None
+        The page in colour (RGB) when it carries colour (a form printed in a
+        dropout colour, see :mod:`recognizer.page.dropout`); None for grey
+        and black-and-white pages.
     """
 
     source: Path
@@ -82,6 +94,8 @@ class Page:
     image: np.ndarray
     dpi: float
     dpi_origin: str
+    warnings: list[str] = field(default_factory=list)
+    colour: np.ndarray | None = field(default=None, repr=False)
 
 
 @dataclass(frozen=True)
@@ -321,10 +335,40 @@ def _image_page(path: Path, img: Image.Image, number: int, max_pixels: int) -> P
         if "truncated" in reason.lower():
             raise _Refused("the file is truncated (cut off before the end of the image)") from None
         raise _Refused(f"the image data is damaged ({reason})") from None
+    colour = _colour(img if number > 1 else ImageOps.exif_transpose(img), gray.shape)
     dpi = _file_dpi(img)
     if dpi is None:
-        return Page(path, number, gray, estimate_dpi(gray.shape), "page size")
-    return Page(path, number, gray, dpi, "file")
+        return _captured(Page(path, number, gray, estimate_dpi(gray.shape), "page size", colour=colour))
+    return _captured(Page(path, number, gray, dpi, "file", colour=colour))
+
+
+def _colour(img: Image.Image, shape: tuple[int, int]) -> np.ndarray | None:
+    """The page as RGB when it carries colour, else None."""
+    if img.mode in {"1", "L", "LA", "I", "I;16", "I;16B", "I;16L", "I;16N", "F"}:
+        return None
+    rgb = np.asarray(img.convert("RGB"))
+    return rgb if rgb.shape[:2] == shape and is_colour(rgb) else None
+
+
+def _captured(page: Page) -> Page:
+    """The page as a flatbed would give it: a negative turned positive, a phone photo flattened."""
+    trusted = page.dpi if page.dpi_origin == "file" and page.dpi >= 100 else None
+    try:
+        flat = flatten_photo(page.image, dpi=trusted)
+    except PhotoRefused as exc:
+        raise _Refused(str(exc)) from None
+    if flat is None:  # a scan: perhaps a negative one (a photo's dark desk is not a negative)
+        positive = undo_negative(page.image)
+        if positive is not None:
+            page.image = positive
+            page.colour = None if page.colour is None else 255 - page.colour
+        return page
+    colour = None
+    if page.colour is not None:
+        h, w = flat.image.shape
+        colour = cv2.warpPerspective(page.colour, flat.homography, (w, h), flags=cv2.INTER_LINEAR,
+                                     borderMode=cv2.BORDER_REPLICATE)
+    return Page(page.source, page.page, flat.image, flat.dpi, "photo", flat.warnings, colour)
 
 
 def _to_gray(img: Image.Image) -> np.ndarray:
@@ -437,15 +481,14 @@ def _render_pdf_page(path: Path, pdf, number: int, dpi: float, max_pixels: int) 
             raise _Refused(_too_large_message(pixels, max_pixels))
         if pixels <= 0:
             raise _Refused("the page has no size")
-        bitmap = pg.render(scale=dpi / 72.0, grayscale=True)
+        bitmap = pg.render(scale=dpi / 72.0, grayscale=False, rev_byteorder=True)
         try:
-            arr = bitmap.to_numpy()
-            gray = np.ascontiguousarray(arr if arr.ndim == 2 else arr[..., :3].mean(axis=2))
-            gray = gray.astype(np.uint8, copy=False)
+            rgb = np.ascontiguousarray(bitmap.to_numpy()[..., :3])
+            gray = cv2.cvtColor(rgb, cv2.COLOR_RGB2GRAY)  # the same grey as pdfium's own (checked)
         finally:
             bitmap.close()
     except pdfium.PdfiumError as exc:
         raise _Refused(f"the page cannot be drawn ({exc})") from None
     finally:
         pg.close()
-    return Page(path, number, gray, float(dpi), "render")
+    return Page(path, number, gray, float(dpi), "render", colour=rgb if is_colour(rgb) else None)

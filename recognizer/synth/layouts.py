@@ -4,14 +4,57 @@ A :class:`FormLayout` describes a printed form: its digit fields (rows of
 boxes) in reading order and the other printed furniture (text, a notes
 rectangle, signature lines, a table, a logo, checkboxes) that a box finder
 must not take for digit boxes. :func:`orchard_card` is the Larkhollow Orchard
-Cooperative's weigh-in card; :func:`bench_page` the A4 benchmark page.
+Cooperative's weigh-in card; :func:`bench_page` the A4 benchmark page; more
+designs in :mod:`recognizer.synth.designs`.
+
+Comb styles
+-----------
+Each :class:`FieldSpec` has a comb style (:data:`COMB_STYLES`):
+
+``"closed"``
+    boxes side by side, neighbours sharing a wall (``gap_mm == 0``);
+``"separate"``
+    square or tall boxes, each with its own four walls, ``gap_mm > 0`` apart;
+``"open"``
+    an open comb: a baseline with short upright ticks between the digit
+    positions and no top line; the two end ticks may be taller
+    (``tick``, ``end_tick``: tick heights as fractions of the box height);
+``"table"``
+    closed (or, with a gap, separate) boxes printed inside a cell of a ruled
+    :class:`Table` of the same layout (checked when the layout is built).
+
+The default ``style=""`` is ``"closed"`` without a gap and ``"separate"``
+with one (the designs made before styles existed).  A printed separator
+(``/``, ``:``, ``.``) between groups of digits, as in a date DD/MM/YYYY,
+stands in a gap one box wide between two fields: every group is a field of
+its own, as the orchard card's tenths after the decimal point
+(:func:`recognizer.synth.designs.grouped_fields` builds such runs).
+
+Colours
+-------
+Everything is printed in the layout's ``colour`` unless a field or a piece of
+furniture names its own: ``"black"`` or a dropout colour (:data:`DROPOUT_COLOURS`:
+light red, green, blue, light grey; RGB values in
+:mod:`recognizer.synth.colour`).  :func:`recolour` prints a design in another
+colour.
+
+Truth and names
+---------------
+``fields`` are in reading order, the order in which
+:func:`recognizer.page.boxes.find_fields` names fields ``f01``, ``f02``, ...:
+rows top to bottom (a field joins a row when its vertical centre lies within
+half a box height of the row's first field's centre), then left to right.
+:func:`fnames` maps layout names to those names.  Every digit position's
+truth rectangle is the inner rectangle of its box; for an open comb, the cell
+between two ticks, from the baseline up to where a box's top wall would be.
 """
 
 from __future__ import annotations
 
 import datetime as dt
+import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -21,6 +64,23 @@ LINE_MM = 0.3
 
 DigitSource = Callable[[int, np.random.Generator], np.ndarray]
 
+COMB_STYLES = ("closed", "separate", "open", "table")
+"""The comb styles a :class:`FieldSpec` can be printed in (see the module notes)."""
+
+PRINT_COLOURS = ("black", "red", "green", "blue", "grey")
+"""Colours forms are printed in: black and the dropout colours."""
+
+DROPOUT_COLOURS = ("red", "green", "blue", "grey")
+"""Light colours that a colour-dropout scanner (or a pen-only reader) ignores."""
+
+VALUE_KINDS = ("", "date", "day", "month", "year", "hour", "minute", "count")
+"""What :func:`random_values` writes in a field: any digits ('') or a part of a date or time,
+or a count (written without leading zeros)."""
+
+
+def _check_colour(colour: str, what: str, *, empty: bool = True) -> None:
+    if colour not in PRINT_COLOURS and not (empty and colour == ""):
+        raise ValueError(f"{what}: unknown colour {colour!r}; use one of {PRINT_COLOURS}")
 
 
 # ---------------------------------------------------------------- layouts
@@ -33,6 +93,13 @@ class FieldSpec:
     its walls), in mm from the page's top-left.  Boxes are ``box_mm`` wide and
     ``box_mm * aspect`` high; ``gap_mm == 0`` gives a comb (neighbours share a
     wall), a positive gap gives separate boxes.
+
+    ``style`` is one of :data:`COMB_STYLES` or '' (closed without a gap,
+    separate with one); an open comb has its baseline at ``y_mm + height_mm``
+    and ticks ``tick`` (inner) and ``end_tick`` (the two ends) times the box
+    height tall.  ``colour`` '' prints the field (boxes and label) in the
+    layout's colour.  ``kind`` says what :func:`random_values` writes
+    (:data:`VALUE_KINDS`).
     """
 
     name: str
@@ -43,6 +110,32 @@ class FieldSpec:
     box_mm: float = 6.0
     aspect: float = 1.2
     gap_mm: float = 0.0
+    style: str = ""
+    colour: str = ""
+    tick: float = 0.3
+    end_tick: float = 0.55
+    kind: str = ""
+
+    def __post_init__(self) -> None:
+        if self.n_boxes < 1:
+            raise ValueError(f"field {self.name!r} needs at least one box")
+        if self.style not in ("", *COMB_STYLES):
+            raise ValueError(f"field {self.name!r}: unknown comb style {self.style!r}; "
+                             f"use one of {COMB_STYLES}")
+        if self.style in ("closed", "open") and self.gap_mm != 0:
+            raise ValueError(f"field {self.name!r}: a {self.style} comb has no gaps")
+        if self.style == "separate" and self.gap_mm <= 0:
+            raise ValueError(f"field {self.name!r}: separate boxes need gap_mm > 0")
+        if not (0 < self.tick <= 1 and 0 < self.end_tick <= 1):
+            raise ValueError(f"field {self.name!r}: tick heights are fractions of the box height")
+        if self.kind not in VALUE_KINDS:
+            raise ValueError(f"field {self.name!r}: unknown kind {self.kind!r}")
+        _check_colour(self.colour, f"field {self.name!r}")
+
+    @property
+    def comb(self) -> str:
+        """The comb style in effect: :attr:`style`, or closed/separate by the gap."""
+        return self.style or ("separate" if self.gap_mm > 0 else "closed")
 
     @property
     def height_mm(self) -> float:
@@ -54,16 +147,25 @@ class FieldSpec:
         """Width of the whole field in mm."""
         return self.n_boxes * self.box_mm + (self.n_boxes - 1) * self.gap_mm
 
+    def lefts_mm(self) -> list[float]:
+        """The left wall (or tick) of every box, in mm."""
+        return [self.x_mm + i * (self.box_mm + self.gap_mm) for i in range(self.n_boxes)]
+
 
 @dataclass(frozen=True)
 class Text:
-    """A printed text line; ``(x_mm, y_mm)`` is the left end of its baseline."""
+    """A printed text line; ``(x_mm, y_mm)`` is the left end of its baseline.
+
+    ``align="centre"`` centres the text on ``x_mm`` instead.
+    """
 
     text: str
     x_mm: float
     y_mm: float
     height_mm: float = 2.5
     bold: bool = False
+    colour: str = ""
+    align: str = "left"
 
 
 @dataclass(frozen=True)
@@ -75,6 +177,7 @@ class Rect:
     w_mm: float
     h_mm: float
     line_mm: float = LINE_MM
+    colour: str = ""
 
 
 @dataclass(frozen=True)
@@ -86,6 +189,7 @@ class Line:
     x1_mm: float
     y1_mm: float
     line_mm: float = LINE_MM
+    colour: str = ""
 
 
 @dataclass(frozen=True)
@@ -98,6 +202,13 @@ class Table:
     row_mm: float
     n_rows: int
     header: tuple[str, ...] = ()
+    colour: str = ""
+
+    def cell_mm(self, row: int, col: int) -> tuple[float, float, float, float]:
+        """``(x0, y0, x1, y1)`` of a cell, between its rules' centre lines (row 0 = header)."""
+        x0 = self.x_mm + sum(self.col_mm[:col])
+        y0 = self.y_mm + row * self.row_mm
+        return x0, y0, x0 + self.col_mm[col], y0 + self.row_mm
 
 
 @dataclass(frozen=True)
@@ -107,6 +218,7 @@ class Logo:
     cx_mm: float
     cy_mm: float
     r_mm: float
+    colour: str = ""
 
 
 Furniture = Text | Rect | Line | Table | Logo
@@ -120,6 +232,9 @@ class FormLayout:
     vertical centres lie within half a box height form one row), left to right
     within a row.  A box finder that numbers fields f01, f02, ... by that rule
     gives field ``fields[i]`` the name ``f{i + 1:02d}`` (see :func:`fnames`).
+    ``colour`` is the colour everything is printed in unless it names its own.
+    Fields in the ``"table"`` style must lie inside a cell of one of the
+    layout's tables.
     """
 
     name: str
@@ -127,6 +242,7 @@ class FormLayout:
     fields: tuple[FieldSpec, ...]
     title: str = ""
     furniture: tuple[Furniture, ...] = ()
+    colour: str = "black"
 
     def __post_init__(self) -> None:
         names = [f.name for f in self.fields]
@@ -134,6 +250,14 @@ class FormLayout:
             raise ValueError(f"duplicate field names in layout {self.name!r}")
         if list(self.fields) != _reading_order(self.fields):
             raise ValueError(f"fields of layout {self.name!r} are not in reading order")
+        _check_colour(self.colour, f"layout {self.name!r}", empty=False)
+        for item in self.furniture:
+            _check_colour(item.colour, f"furniture {item!r}")
+        tables = [item for item in self.furniture if isinstance(item, Table)]
+        for spec in self.fields:
+            if spec.comb == "table" and not any(_in_a_cell(spec, t) for t in tables):
+                raise ValueError(f"table field {spec.name!r} of layout {self.name!r} "
+                                 "is not inside a table cell")
 
     def field(self, name: str) -> FieldSpec:
         """The field called ``name``."""
@@ -141,6 +265,22 @@ class FormLayout:
             if spec.name == name:
                 return spec
         raise KeyError(name)
+
+    def colour_of(self, item: FieldSpec | Furniture) -> str:
+        """The colour ``item`` is printed in."""
+        return item.colour or self.colour
+
+
+def _in_a_cell(spec: FieldSpec, table: Table) -> bool:
+    """Whether the field's outline lies within one cell of ``table`` (rules may be shared)."""
+    eps = 1e-6
+    for row in range(table.n_rows):
+        for col in range(len(table.col_mm)):
+            x0, y0, x1, y1 = table.cell_mm(row, col)
+            if (x0 - eps <= spec.x_mm and spec.x_mm + spec.width_mm <= x1 + eps
+                    and y0 - eps <= spec.y_mm and spec.y_mm + spec.height_mm <= y1 + eps):
+                return True
+    return False
 
 
 def _reading_order(fields: Sequence[FieldSpec]) -> list[FieldSpec]:
@@ -160,6 +300,20 @@ def _reading_order(fields: Sequence[FieldSpec]) -> list[FieldSpec]:
 def fnames(layout: FormLayout) -> dict[str, str]:
     """Map each field name to the box finder's reading-order name (``f01``, ``f02``, ...)."""
     return {spec.name: f"f{i + 1:02d}" for i, spec in enumerate(layout.fields)}
+
+
+def recolour(layout: FormLayout, colour: str, *, furniture: bool = True) -> FormLayout:
+    """``layout`` printed in ``colour``.
+
+    With ``furniture=False`` only the fields (boxes and labels) change colour and
+    the rest stays as it was (black text and marks a template can register on).
+    Items that name their own colour keep it.
+    """
+    _check_colour(colour, "recolour", empty=False)
+    if furniture:
+        return replace(layout, colour=colour)
+    fields = tuple(spec if spec.colour else replace(spec, colour=colour) for spec in layout.fields)
+    return replace(layout, fields=fields)
 
 
 ORCHARD_VARIETIES = ("Amberlin", "Coldmere Russet", "Maybright")
@@ -253,8 +407,10 @@ def random_values(layout: FormLayout, *, rng: np.random.Generator) -> dict[str, 
     The orchard card gets consistent values (a 2026 harvest date, crate counts
     summing to the total, a net weight of 16.5..19.5 kg per crate, grower
     numbers with leading zeros, some variety counts left blank); any other
-    layout gets random digit strings, mostly filling the field, sometimes
-    shorter (written right-aligned) or blank.
+    layout gets, in a field with a ``kind``, a value of that kind (a 2026
+    harvest date or part of one, a working-day time, a count), and else random
+    digit strings, mostly filling the field, sometimes shorter (written
+    right-aligned) or blank.
 
     Returns
     -------
@@ -265,6 +421,9 @@ def random_values(layout: FormLayout, *, rng: np.random.Generator) -> dict[str, 
         return _orchard_values(rng)
     values = {}
     for spec in layout.fields:
+        if spec.kind:
+            values[spec.name] = _kind_value(spec, rng)
+            continue
         u = rng.random()
         n = spec.n_boxes if u < 0.85 else (0 if u < 0.9 else int(rng.integers(1, spec.n_boxes + 1)))
         values[spec.name] = "".join(str(d) for d in rng.integers(0, 10, n))
@@ -297,3 +456,22 @@ def _orchard_values(rng: np.random.Generator) -> dict[str, str]:
         "net_weight_kg": str(int(weight)),
         "net_weight_tenths": str(int(round(weight * 10)) % 10),
     }
+
+
+def _kind_value(spec: FieldSpec, rng: np.random.Generator) -> str:
+    """A value of ``spec.kind`` that fits the field (right-aligned when shorter)."""
+    n = spec.n_boxes
+    if spec.kind in ("date", "day", "month", "year"):
+        day = dt.date(2026, 8, 10) + dt.timedelta(days=int(rng.integers(0, 83)))
+        text = {"date": day.strftime("%d%m%Y"), "day": day.strftime("%d"),
+                "month": day.strftime("%m"), "year": day.strftime("%Y")}[spec.kind]
+        return text[-n:]
+    if spec.kind == "hour":
+        return f"{int(rng.integers(6, 20)):02d}"[-n:]
+    if spec.kind == "minute":
+        return f"{int(rng.integers(0, 60)):02d}"[-n:]
+    # a count: blank now and then, else 1 .. a few hundred, as many digits as it takes
+    if rng.random() < 0.1:
+        return ""
+    top = min(10 ** n - 1, 400)
+    return str(int(math.exp(rng.uniform(0.0, math.log(top + 1)))) or 1)[:n]

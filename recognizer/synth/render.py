@@ -3,7 +3,10 @@
 :func:`render_form` draws a :class:`~recognizer.synth.layouts.FormLayout`,
 writes each field's digits with a handwriting source (our stroke-model
 writers, or real digit images), and records where every box's inner
-rectangle lies: the truth the tests compare with.
+rectangle lies: the truth the tests compare with.  Fields are printed in their
+comb style (closed or separate boxes, open combs, boxes in table cells; see
+:mod:`recognizer.synth.layouts`) and colour; a form printed in a colour, or
+written with a blue pen, also comes as an RGB image (:mod:`recognizer.synth.colour`).
 
 Pixel coordinates are continuous: pixel (row r, column c) covers
 ``[c, c + 1) x [r, r + 1)``, so its centre is ``(c + 0.5, r + 0.5)``.
@@ -17,6 +20,7 @@ from functools import partial
 import cv2
 import numpy as np
 
+from recognizer.synth.colour import INK_RGB, PRINT_RGB, multiply, tint, to_grey
 from recognizer.synth.handwriting import Writer, draw_stray_mark
 from recognizer.synth.layouts import (
     LINE_MM, MM_PER_INCH, DigitSource, FieldSpec, FormLayout, Furniture, Line, Logo, Rect, Table, Text,
@@ -52,6 +56,22 @@ class RenderedForm:
     rules : numpy.ndarray or None
         (M, N) bool, the pixels of printed lines (not text); None after
         :func:`scan_distort`.
+    rgb : numpy.ndarray or None
+        (M, N, 3) uint8 colour page when the form was rendered in colour (a
+        printed colour other than black, a blue pen, or ``colour=True``);
+        ``image`` is then its grey (as Pillow converts it).  Kept by the
+        captures that keep colour.
+    printed_rgb, handwriting_rgb : numpy.ndarray or None
+        The two colour layers (``rgb`` is their product); None after a capture.
+    styles : dict
+        Field name -> comb style in effect (:data:`~recognizer.synth.layouts.COMB_STYLES`).
+    colours : dict
+        Field name -> the colour its boxes are printed in.
+    ink : str
+        The pen: ``"black"`` or ``"blue"``.
+
+    ``boxes`` (and every dict here) lists the fields in reading order, so
+    :meth:`fnames` gives the box finder's names.
     """
 
     image: np.ndarray
@@ -62,6 +82,21 @@ class RenderedForm:
     printed: np.ndarray | None = field(default=None, repr=False)
     handwriting: np.ndarray | None = field(default=None, repr=False)
     rules: np.ndarray | None = field(default=None, repr=False)
+    rgb: np.ndarray | None = field(default=None, repr=False)
+    printed_rgb: np.ndarray | None = field(default=None, repr=False)
+    handwriting_rgb: np.ndarray | None = field(default=None, repr=False)
+    styles: dict[str, str] = field(default_factory=dict)
+    colours: dict[str, str] = field(default_factory=dict)
+    ink: str = "black"
+
+    def fnames(self) -> dict[str, str]:
+        """Field name -> the box finder's reading-order name (``f01``, ``f02``, ...)."""
+        return {name: f"f{i + 1:02d}" for i, name in enumerate(self.boxes)}
+
+    def truth(self) -> dict[str, tuple[str, list[Box]]]:
+        """Box finder name -> (field name, inner rectangles left to right), in reading order."""
+        names = self.fnames()
+        return {names[k]: (k, list(v)) for k, v in self.boxes.items()}
 
 
 def mm_to_px(mm: float, dpi: int) -> float:
@@ -72,7 +107,8 @@ def mm_to_px(mm: float, dpi: int) -> float:
 def render_form(layout: FormLayout, values: dict[str, str], *, dpi: int = 300,
                 writer: Writer | None = None, digit_source: DigitSource | None = None,
                 rng: np.random.Generator, line_px: int | None = None,
-                stray_marks: float = 0.0) -> RenderedForm:
+                stray_marks: float = 0.0, colour: bool | None = None,
+                ink: str = "black") -> RenderedForm:
     """Print ``layout`` at ``dpi`` and write ``values`` into its boxes.
 
     Parameters
@@ -95,25 +131,48 @@ def render_form(layout: FormLayout, values: dict[str, str], *, dpi: int = 300,
     stray_marks : float
         Probability that an empty box gets a stray dot, dash or smudge
         (:func:`recognizer.synth.handwriting.draw_stray_mark`); its cell stays ''.
+    colour : bool, optional
+        Also make the RGB page (``rgb``).  By default (None) only when something
+        is printed in a colour other than black or ``ink`` is blue; a form
+        printed all in black with a black pen is then exactly as before colour
+        existed.  ``False`` with colours in the layout is refused.
+    ink : str
+        The pen, ``"black"`` or ``"blue"``.
 
     Returns
     -------
     RenderedForm
         Digits fill about 60-80 % of the box height, with jitter in position
-        and size; a few percent of them touch or cross a box wall.
+        and size; a few percent of them touch or cross a box wall.  The
+        random draws do not depend on colours, so the same seed writes the same
+        digits on a black and on a dropout-coloured print of a design.
     """
     width_px = int(round(mm_to_px(layout.page_mm[0], dpi)))
     height_px = int(round(mm_to_px(layout.page_mm[1], dpi)))
     line = line_px if line_px is not None else max(1, int(round(mm_to_px(LINE_MM, dpi))))
-    printed = np.full((height_px, width_px), 255, np.uint8)
+    if ink not in INK_RGB:
+        raise ValueError(f"unknown ink {ink!r}; use one of {tuple(INK_RGB)}")
+    used = {layout.colour_of(item) for item in (*layout.furniture, *layout.fields)}
+    in_colour = bool(used - {"black"}) or ink != "black"
+    if colour is False and in_colour:
+        raise ValueError(f"layout {layout.name!r} in {sorted(used)} with {ink} ink needs colour")
+    canvases: dict[str, np.ndarray] = {}
+
+    def canvas(item: FieldSpec | Furniture) -> np.ndarray:
+        name = layout.colour_of(item)
+        if name not in canvases:
+            canvases[name] = np.full((height_px, width_px), 255, np.uint8)
+        return canvases[name]
+
     rules = np.zeros((height_px, width_px), bool)
     for item in layout.furniture:
-        _draw_furniture(printed, rules, item, dpi, line)
+        _draw_furniture(canvas(item), rules, item, dpi, line)
     boxes: dict[str, list[Box]] = {}
     for spec in layout.fields:
-        boxes[spec.name] = _draw_field(printed, rules, spec, dpi, line)
+        boxes[spec.name] = _draw_field(canvas(spec), rules, spec, dpi, line)
         if spec.label:
-            _put_text(printed, spec.label, spec.x_mm, spec.y_mm - 1.3, 2.2, dpi)
+            _put_text(canvas(spec), spec.label, spec.x_mm, spec.y_mm - 1.3, 2.2, dpi)
+    printed = canvases.get("black", np.full((height_px, width_px), 255, np.uint8))
     if writer is None and digit_source is None:
         writer = Writer.random(rng)
     source = digit_source or _writer_source(writer)
@@ -135,8 +194,20 @@ def render_form(layout: FormLayout, values: dict[str, str], *, dpi: int = 300,
                 _write_digit(handwriting, box, source(int(char), rng), darkness, rng)
             elif rng.random() < stray_marks:
                 _write_stray_mark(handwriting, box, darkness, rng)
-    image = np.minimum(printed, handwriting)
-    return RenderedForm(image, dpi, clean_values, boxes, cells, printed, handwriting, rules)
+    styles = {spec.name: spec.comb for spec in layout.fields}
+    colours = {spec.name: layout.colour_of(spec) for spec in layout.fields}
+    if not (in_colour or colour):
+        image = np.minimum(printed, handwriting)
+        return RenderedForm(image, dpi, clean_values, boxes, cells, printed, handwriting, rules,
+                            styles=styles, colours=colours, ink=ink)
+    printed_rgb = np.full((height_px, width_px, 3), 255, np.uint8)
+    for name, layer in canvases.items():
+        printed_rgb = multiply(printed_rgb, tint(layer, PRINT_RGB[name]))
+    handwriting_rgb = tint(handwriting, INK_RGB[ink])
+    rgb = multiply(printed_rgb, handwriting_rgb)
+    return RenderedForm(to_grey(rgb), dpi, clean_values, boxes, cells, to_grey(printed_rgb),
+                        to_grey(handwriting_rgb), rules, rgb, printed_rgb, handwriting_rgb,
+                        styles, colours, ink)
 
 
 def _writer_source(writer: Writer) -> DigitSource:
@@ -175,11 +246,22 @@ def _rect(page: np.ndarray, rules: np.ndarray, x0: float, y0: float, x1: float, 
 
 def _draw_field(page: np.ndarray, rules: np.ndarray, spec: FieldSpec, dpi: int,
                 w: int) -> list[Box]:
-    """Draw the walls of a field's boxes; return their inner rectangles in px."""
+    """Draw the walls of a field's boxes; return their inner rectangles in px.
+
+    An open comb gets a baseline under all positions and ticks at both sides of
+    each; its rectangles reach from the baseline up to where a box's top wall
+    would be.
+    """
     px = partial(mm_to_px, dpi=dpi)
     y0, y1 = px(spec.y_mm), px(spec.y_mm + spec.height_mm)
     lefts = [spec.x_mm + i * (spec.box_mm + spec.gap_mm) for i in range(spec.n_boxes)]
-    if spec.gap_mm == 0:
+    if spec.comb == "open":
+        _hline(page, rules, y1, px(lefts[0]), px(lefts[0] + spec.width_mm), w)
+        edges = [*lefts, lefts[-1] + spec.box_mm]
+        for i, x in enumerate(edges):
+            tall = spec.end_tick if i in (0, len(edges) - 1) else spec.tick
+            _vline(page, rules, px(x), y1 - px(tall * spec.height_mm), y1, w)
+    elif spec.gap_mm == 0:
         _rect(page, rules, px(lefts[0]), y0, px(lefts[0] + spec.width_mm), y1, w)
         for x in lefts[1:]:
             _vline(page, rules, px(x), y0, y1, w)
@@ -196,7 +278,8 @@ def _draw_furniture(page: np.ndarray, rules: np.ndarray, item: Furniture, dpi: i
     """Print one piece of non-digit furniture."""
     px = partial(mm_to_px, dpi=dpi)
     if isinstance(item, Text):
-        _put_text(page, item.text, item.x_mm, item.y_mm, item.height_mm, dpi, item.bold)
+        _put_text(page, item.text, item.x_mm, item.y_mm, item.height_mm, dpi, item.bold,
+                  item.align)
     elif isinstance(item, Rect):
         lw = max(1, int(round(px(item.line_mm))))
         _rect(page, rules, px(item.x_mm), px(item.y_mm), px(item.x_mm + item.w_mm),
@@ -234,11 +317,19 @@ _FONT_CAP_PX = cv2.getTextSize("H", _FONT, 1.0, 1)[0][1]
 
 
 def _put_text(page: np.ndarray, text: str, x_mm: float, y_mm: float, height_mm: float,
-              dpi: int, bold: bool = False) -> None:
-    """Print ASCII ``text`` with its baseline starting at (x_mm, y_mm); cap height ``height_mm``."""
+              dpi: int, bold: bool = False, align: str = "left") -> None:
+    """Print ASCII ``text`` with its baseline starting at (x_mm, y_mm); cap height ``height_mm``.
+
+    ``align="centre"`` centres the text's ink on ``x_mm`` instead.
+    """
     scale = mm_to_px(height_mm, dpi) / _FONT_CAP_PX
     thickness = max(1, int(round(scale * (2.6 if bold else 1.6))))
-    origin = (int(round(mm_to_px(x_mm, dpi))), int(round(mm_to_px(y_mm, dpi))))
+    x_px = mm_to_px(x_mm, dpi)
+    if align == "centre":
+        x_px -= cv2.getTextSize(text, _FONT, scale, thickness)[0][0] / 2.0
+    elif align != "left":
+        raise ValueError(f"unknown text alignment {align!r}")
+    origin = (int(round(x_px)), int(round(mm_to_px(y_mm, dpi))))
     cv2.putText(page, text, origin, _FONT, scale, 0, thickness, cv2.LINE_AA)
 
 

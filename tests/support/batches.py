@@ -53,11 +53,14 @@ def one_hot(text: str, confidence: float) -> np.ndarray:
 
 
 def make_page(source, number: int, spec: dict[str, list[tuple[str, float]]], *,
-              warnings=(), problem: str | None = None) -> PageRead:
+              warnings=(), problem: str | None = None, doubts: dict[str, tuple[str, ...]] | None = None,
+              template: str | None = None) -> PageRead:
     """A page read, built by hand: ``spec`` maps field name -> per box (text, confidence).
 
     Text ``""`` is an empty box. The page image has one row of ruled boxes per
-    field with a thick ring of ink in each written box.
+    field with a thick ring of ink in each written box. ``doubts`` gives
+    fields doubts about their boxes; ``template`` names the template that
+    read the page (its rules are not checked).
     """
     if problem:
         return PageRead(Path(source), number, DPI, 0.0, [], problem=problem, warnings=list(warnings),
@@ -79,8 +82,9 @@ def make_page(source, number: int, spec: dict[str, list[tuple[str, float]]], *,
                                     one_hot(text, conf) if text else None, crop))
             boxes.append(box)
         value, gap = field_value([d.text for d in digits])
-        fields.append(FieldRead(name, tuple(boxes), digits, value, gap))
-    return PageRead(Path(source), number, DPI, 0.4, fields, warnings=list(warnings), image=image)
+        fields.append(FieldRead(name, tuple(boxes), digits, value, gap, tuple((doubts or {}).get(name, ()))))
+    return PageRead(Path(source), number, DPI, 0.4, fields, warnings=list(warnings), image=image,
+                    template=template)
 
 
 #: A small card: grower number, a 3-box count and a 2-box block.

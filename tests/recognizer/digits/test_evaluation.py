@@ -12,6 +12,8 @@ from recognizer.digits.evaluation import (
     accuracy_reject_table,
     confusion_matrix,
     expected_calibration_error,
+    optdigits_to_ink,
+    optdigits_to_model_input,
     threshold_for_residual_error,
     write_report,
 )
@@ -73,3 +75,50 @@ def test_write_report(tmp_path) -> None:
     assert [p.name for p in written] == ["figures.json", "accuracy_reject.png", "reliability.png"]
     assert json.loads(written[0].read_text()) == {"ece_15": 0.01, "accuracy": 0.8}
     assert_array_equal([p.stat().st_size > 1000 for p in written[1:]], [True, True])
+
+
+# A hand-made optdigits "7" (UCI optdigits layout, Alpaydin & Kaynak: each value
+# counts the ink pixels of a 4 x 4 block of a 32 x 32 bitmap, 0..16): a full
+# top bar in row 1, a stem going down and to the left, half-covered blocks at
+# the stem's edges.
+SEVEN = np.array([
+    [0, 0, 0, 0, 0, 0, 0, 0],
+    [0, 16, 16, 16, 16, 16, 8, 0],
+    [0, 0, 0, 0, 8, 16, 4, 0],
+    [0, 0, 0, 0, 16, 8, 0, 0],
+    [0, 0, 0, 8, 16, 0, 0, 0],
+    [0, 0, 0, 16, 8, 0, 0, 0],
+    [0, 0, 4, 16, 0, 0, 0, 0],
+    [0, 0, 0, 0, 0, 0, 0, 0],
+])
+
+
+def test_optdigits_ink_is_block_coverage_enlarged_four_times() -> None:
+    ink = optdigits_to_ink(SEVEN)
+    assert ink.shape == (40, 40) and ink.dtype == np.float32
+    assert ink.min() >= 0 and ink.max() <= 1
+    # block (row r, column c) of the 8 x 8 covers pixels 4 + 4r .. 8 + 4r (one empty block of border),
+    # centre 4r + 5.5; its four central pixels lie half a pixel from it, so bilinear interpolation
+    # gives them 7/8 of the block and 1/8 of the neighbour on each axis
+    centre = lambda r, c: float(ink[4 * r + 5: 4 * r + 7, 4 * c + 5: 4 * c + 7].mean())  # noqa: E731
+    assert centre(1, 2) == pytest.approx(7 / 8)  # a full block of the bar, empty above and below
+    assert centre(3, 0) == 0.0 and centre(7, 7) == 0.0  # empty blocks with empty neighbours
+    assert 0.3 < centre(1, 6) < 0.7                      # a half-covered block
+    assert ink[:2].max() == 0 and ink[:, :2].max() == 0  # the added border stays paper
+    batch = optdigits_to_ink(np.stack([SEVEN, np.zeros((8, 8))]))
+    assert batch.shape == (2, 40, 40) and batch[1].max() == 0
+    with pytest.raises(ValueError):
+        optdigits_to_ink(SEVEN * 2)  # counts of a 4 x 4 block cannot exceed 16
+
+
+def test_optdigits_model_input_follows_the_mnist_layout() -> None:
+    cell = optdigits_to_model_input(SEVEN[None])[0]
+    assert cell.shape == (28, 28) and cell.dtype == np.float32
+    rows = np.nonzero(cell.max(axis=1) > 0.05)[0]
+    cols = np.nonzero(cell.max(axis=0) > 0.05)[0]
+    assert max(np.ptp(rows), np.ptp(cols)) + 1 in (20, 21)  # longer side of the ink box about 20 px
+    ys, xs = np.mgrid[0:28, 0:28]
+    cy, cx = (cell * ys).sum() / cell.sum(), (cell * xs).sum() / cell.sum()
+    assert abs(cy - 14) <= 1.0 and abs(cx - 14) <= 1.0  # centre of mass on (14, 14) (pixel index, +-1)
+    assert cell[rows[0]: rows[0] + 3].sum() > cell[rows[-1] - 2: rows[-1] + 1].sum()  # the bar is on top
+    assert optdigits_to_model_input(SEVEN.reshape(1, 64)).shape == (1, 28, 28)

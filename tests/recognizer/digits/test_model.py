@@ -12,6 +12,7 @@ from numpy.testing import assert_allclose
 
 from recognizer.digits.model import (
     CLASSES,
+    FORMAT_VERSION,
     NOT_A_DIGIT,
     DigitModel,
     ModelFileError,
@@ -174,6 +175,88 @@ def test_load_refuses_truncated_and_missing(tmp_path: Path) -> None:
     (tmp_path / "text.npz").write_text("hello")
     with pytest.raises(ModelFileError, match="not an .npz archive"):
         load_model(tmp_path / "text.npz")
+
+
+def _two_members(preprocessing=None) -> DigitModel:
+    """Two members 784 -> 3 -> 11 with random weights."""
+    rng = np.random.default_rng(4)
+    members = [[(rng.normal(0, 0.1, (784, 3)).astype(np.float32), rng.normal(0, 0.1, 3).astype(np.float32)),
+                (rng.normal(0, 1, (3, 11)).astype(np.float32), rng.normal(0, 1, 11).astype(np.float32))]
+               for _ in range(2)]
+    return DigitModel(members=members, temperature=1.3, curve_threshold=np.array([0.5, 0.9]),
+                      curve_residual=np.array([0.01, 0.0]), metadata={"name": "two"}, preprocessing=preprocessing)
+
+
+def _slanted_cells() -> np.ndarray:
+    m = np.float32([[1, 0.4, -0.4 * 14], [0, 1, 0]])
+    return np.stack([cv2.warpAffine(_bar(), m, (28, 28)), _bar()])
+
+
+def test_members_prepare_cells_their_own_way(tmp_path: Path) -> None:
+    cells = _slanted_cells()
+    mixed = _two_members(("deskew", "none"))
+    both_deskew = _two_members()
+    assert both_deskew.member_preprocessing == ("deskew", "deskew")  # no entry: every member deskews
+    a, b = mixed.member_logits(cells), both_deskew.member_logits(cells)
+    assert_allclose(a[0], b[0])  # the deskewing member reads the same
+    assert not np.allclose(a[1], b[1])  # the other one reads the slanted cell as it is
+    w, bias = mixed.members[1][0]
+    hidden = np.maximum(cells.reshape(2, 784) @ w + bias, 0)
+    assert_allclose(a[1], hidden @ mixed.members[1][1][0] + mixed.members[1][1][1], rtol=1e-5, atol=1e-6)
+    path = tmp_path / "mixed.npz"
+    mixed.save(path)
+    again = load_model(path)
+    assert again.member_preprocessing == ("deskew", "none")
+    assert again.metadata["format_version"] == FORMAT_VERSION == 3
+    assert_allclose(again.predict_proba(cells), mixed.predict_proba(cells))
+
+
+def test_format_2_files_still_load(tmp_path: Path) -> None:
+    """A format-2 file (no member_preprocessing; every member deskews) loads and reads as before."""
+    path = tmp_path / "v2.npz"
+    _two_members().save(path)
+
+    def as_format_2(arrays: dict) -> None:
+        meta = json.loads(str(arrays["metadata"]))
+        meta["format_version"] = 2
+        del meta["member_preprocessing"]
+        arrays["metadata"] = np.array(json.dumps(meta))
+
+    _rewrite(path, as_format_2)
+    old = load_model(path)
+    assert old.metadata["format_version"] == 2 and old.member_preprocessing == ("deskew", "deskew")
+    assert_allclose(old.predict_proba(_slanted_cells()), _two_members().predict_proba(_slanted_cells()))
+
+
+@pytest.mark.parametrize(
+    ("entry", "message"),
+    [
+        (None, "one entry per member"),
+        ("deskew", "one entry per member"),
+        (["deskew"], "one entry per member"),
+        (["deskew", "blur"], "unknown member preprocessing 'blur'"),
+        (["deskew", 3], "unknown member preprocessing 3"),
+    ],
+    ids=["missing", "not-a-list", "too-short", "unknown", "not-a-string"],
+)
+def test_load_refuses_bad_member_preprocessing(tmp_path: Path, entry, message: str) -> None:
+    path = tmp_path / "bad.npz"
+    _two_members(("deskew", "none")).save(path)
+    _rewrite(path, lambda a: _set_meta(a, member_preprocessing=entry))
+    with pytest.raises(ModelFileError, match=message):
+        load_model(path)
+
+
+def test_load_refuses_bad_format_version_and_temperature(tmp_path: Path) -> None:
+    path = tmp_path / "bad.npz"
+    for values, message in (({"format_version": True}, "integer 'format_version'"),
+                            ({"format_version": 0}, "integer 'format_version'"),
+                            ({"temperature": "hot"}, "temperature"),
+                            ({"temperature": float("inf")}, "temperature")):
+        _two_members().save(path)
+        _rewrite(path, lambda a: _set_meta(a, **values))
+        with pytest.raises(ModelFileError, match=message):
+            load_model(path)
 
 
 def test_shipped_model_meets_floor() -> None:

@@ -75,7 +75,7 @@ def test_values_table_shares_one_header_and_keeps_zeros(tmp_path):
     assert rows[2][-2] == "f03 f05"
     assert rows[3] == ["cards/broken.jpg", ""] + [""] * 11 + ["", "the file is truncated"]
     assert '"cards/b, ""odd"".pdf"' in out.read_text(encoding="utf-8")
-    assert rows[1][-2] == "f01 f02"  # a.png has another layout than most pages: all its fields
+    assert rows[1][-2] == "f01 f02"  # a.png differs from most pages from its first field on: all its fields
     assert rows[4][-2] == ""
 
 
@@ -103,3 +103,23 @@ def test_a_field_with_doubtful_boxes_is_to_check(tmp_path):
     table.add_page(_page("a.png", 1, [sure, doubtful]), threshold=0.5)
     table.write(tmp_path / "v.csv")
     assert _read_csv(tmp_path / "v.csv")[1][-2] == "f02"
+
+
+def test_page_warnings_and_another_layout_flag_only_the_fields_they_concern(tmp_path):
+    from recognizer.states import FAINT_LINES_WARNING
+
+    def card(f01=0.999, f02=0.999, f03_boxes=3):
+        return [_field("f01", ["1", "2"], f01), _field("f02", ["3"], f02), _field("f03", ["4"] * f03_boxes)]
+
+    table = ValuesTable()
+    for name in ("a.png", "b.png"):
+        table.add_page(_page(name, 1, card()), threshold=0.9)
+    faint = _page("faint.png", 1, card(f02=0.94))  # 94 %: accepted alone, near the limit on a faint page
+    faint.warnings = [FAINT_LINES_WARNING]
+    table.add_page(faint, threshold=0.9)
+    table.add_page(_page("lost.png", 1, card(f03_boxes=2)), threshold=0.9)  # a box of f03 not found
+    assert faint.field_reasons(0.9) == {"f01": (), "f02": ("faint lines",), "f03": ()}
+    assert faint.fields[1].reasons(0.9) == ()  # its own reasons: none
+    table.write(tmp_path / "v.csv")
+    assert [row[-2] for row in _read_csv(tmp_path / "v.csv")[1:]] == ["", "", "f02", "f03"]
+    assert table.reason_counts() == {"faint lines": 1, "layout differs": 1}

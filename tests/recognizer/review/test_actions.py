@@ -78,6 +78,7 @@ def test_field_level_flags(batch, spec, warnings, expected):
 
 
 def test_pages_with_another_layout_are_flagged_as_more_pages_come(batch):
+    """Only the field whose number of boxes differs is flagged, not the whole page (recognizer.states)."""
     sure = {"f01": [("1", 0.99), ("2", 0.99)], "f02": [("3", 0.99)]}
     odd = {"f01": [("1", 0.99), ("2", 0.99), ("5", 0.99)], "f02": [("3", 0.99)]}
     heard = []
@@ -85,13 +86,14 @@ def test_pages_with_another_layout_are_flagged_as_more_pages_come(batch):
     first = add_page(batch, "odd.png", spec=odd)
     assert state_counts(batch)["fields"] == {READ: 2}  # alone, it is the batch's layout
     second = add_page(batch, "a.png", spec=sure)
-    assert state_counts(batch)["fields"] == {READ: 2, TO_CHECK: 2}  # a tie: the first layout seen wins
+    assert state_counts(batch)["fields"] == {READ: 3, TO_CHECK: 1}  # a tie: the first layout seen wins
+    assert field_row(batch, field_id(batch, "a.png", 1, "f01"))["state"] == TO_CHECK
     third = add_page(batch, "b.png", spec=sure)
     assert heard[-1].page_ids == (third, first, second)  # both changed their flag
     counts = state_counts(batch)
-    assert counts["fields"] == {READ: 4, TO_CHECK: 2} and counts["pages"] == {READ: 2, TO_CHECK: 1}
+    assert counts["fields"] == {READ: 5, TO_CHECK: 1} and counts["pages"] == {READ: 2, TO_CHECK: 1}
     items = ReviewQueue(batch).items()
-    assert {(i.file, i.field) for i in items} == {("odd.png", "f01"), ("odd.png", "f02")}
+    assert {(i.file, i.field) for i in items} == {("odd.png", "f01")}  # f02 has the batch's single box
     assert all(i.why == ("layout differs",) for i in items)
 
 
@@ -391,8 +393,10 @@ def test_review_list_shows_what_is_left(batch_path, capsys):
     out = capsys.readouterr().out.splitlines()
     assert out[0] == "2 field(s) to check on 2 page(s); 1 page(s) or file(s) not read."
     assert out[1].split() == ["file", "page", "field", "value", "read", "lowest", "confidence", "why"]
-    assert out[2].split() == ["cards/a.png", "1", "f02", "17", "0.500", "low", "confidence"]
-    assert out[3].split() == ["cards/b.png", "1", "f01", "3?", "0.200", "low", "confidence,", "not", "a", "digit"]
+    # why, in words (recognizer.states.REASON_WORDS), never as the reasons' keys
+    assert out[2].split() == ["cards/a.png", "1", "f02", "17", "0.500", *"a digit the reader is unsure of".split()]
+    assert out[3].split() == ["cards/b.png", "1", "f01", "3?", "0.200",
+                              *"a digit the reader is unsure of; a mark that may not be a digit".split()]
     assert out[4] == "not read: cards/c.pdf: encrypted PDF"
 
 
