@@ -122,7 +122,7 @@ def _learn_once(window) -> None:
 
     batch = window.batch
     with batch.transaction() as conn:
-        batch.update_settings(conn, learning_every=100)
+        batch.update_settings(conn, learning_every=200)
     with open(ROOT / "sample_forms" / "truth_fnames.csv", newline="", encoding="utf-8") as fh:
         truth = {(r.pop("file"), int(r.pop("page"))): r for r in csv.DictReader(fh)}
     loop = QEventLoop()
@@ -137,6 +137,7 @@ def _learn_once(window) -> None:
             break
     if window.controller.learning:
         loop.exec()
+    window.review.next_field()
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -260,6 +260,8 @@ class LearnWorker(Worker):
         except ValueError as exc:
             raise Refused(f"Cannot learn from this batch: {exc}.") from exc
         if self.should_stop():
+            if candidate.path is not None:  # the accepted model's file, never used
+                candidate.path.unlink(missing_ok=True)
             return None
         if candidate.accepted:
             self.progress.emit("Reading the unchecked digits again with what was learned…")

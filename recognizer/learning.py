@@ -32,8 +32,9 @@ switch, as the window does):
   held-out MNIST within 0.3 points), and against the model in use on the
   checked digits kept aside to judge (the same digits, by id, in every
   round: neither model learned from them), where it must read at least as
-  many right and send no more of them to a person (each model at the
-  threshold the batch would have with it);
+  many right; and it may not send more of the unchecked digits of
+  :data:`PREVIEW_PAGES` pages spread over the batch to a person (each model
+  at the threshold the batch would have with it);
 * when accepted: saves the model next to the batch
   (``<batch stem>.models/<version>.npz``, the ordinary model file format; its
   metadata ``learning`` names the batch, the round and the model it started
@@ -65,7 +66,8 @@ from typing import Any
 import numpy as np
 
 from recognizer.batch.queries import count_fields, labelled_count, open_digits
-from recognizer.batch.samples import gather_cells
+from recognizer.batch.review_rows import open_boxes, pages_with_open_digits
+from recognizer.batch.samples import StoredPages, gather_cells
 from recognizer.batch.store import Batch, BatchSettings
 from recognizer.digits.model import DigitModel
 from recognizer.digits.retrain import MIN_SAMPLES, LabelledCells, RetrainResult, RetrainSettings, retrain
@@ -79,6 +81,7 @@ __all__ = [
     "LEARNING_SETTINGS",
     "DEFAULT_LEARNING_EVERY",
     "JUDGE_EVERY",
+    "PREVIEW_PAGES",
     "LearningCancelled",
     "Candidate",
     "LearningRound",
@@ -101,6 +104,9 @@ DEFAULT_LEARNING_EVERY = BatchSettings().learning_every
 #: One checked digit in this many (by digit id) is never learned from: it judges each new
 #: model against the model in use.
 JUDGE_EVERY = 5
+
+#: Pages (spread over the batch) whose unchecked digits preview how many digits a new model would send to a person.
+PREVIEW_PAGES = 40
 
 
 def batch_samples(batches: Sequence[Batch]) -> tuple[LabelledCells, list[dict[str, Any]]]:
@@ -244,12 +250,19 @@ class LearningRound:
         return self.fields_before - self.fields_after
 
     def in_words(self) -> str:
-        """One sentence for the clerk (status line, model panel)."""
+        """One short sentence for the clerk (the status line)."""
         learned = f"Learned from your {self.samples:,} checked digits"
         if not self.accepted:
-            return (f"Kept the model in use: the one {learned[0].lower()}{learned[1:]} was not better "
-                    f"({_gate_words(self)}).")
+            return f"Kept the model in use: the one {learned[0].lower()}{learned[1:]} was not better."
         return f"{learned}: {_difference(self.fewer_digits, 'digit')}{_fields_in_brackets(self.fewer_fields)}."
+
+    def why(self) -> str:
+        """Why a new model was not used, in words ("" when it was)."""
+        return "" if self.accepted else f"{_gate_words(self)[0].upper()}{_gate_words(self)[1:]}."
+
+    def in_full(self) -> str:
+        """:meth:`in_words` and, for a refused model, :meth:`why` (the model panel)."""
+        return f"{self.in_words()} {self.why()}".strip()
 
     def to_json(self) -> dict[str, Any]:
         """As stored in the batch settings (``learning_last``)."""
@@ -291,9 +304,10 @@ def _gate_words(r: LearningRound) -> str:
     if judged and (judged.get("new") or 0) < (judged.get("in_use") or 0):
         parts.append(f"right on {_pct(judged.get('new'))} of {judged.get('n', 0):,} of your checked digits set aside "
                      f"to test it, against {_pct(judged.get('in_use'))} for the model in use")
-    if judged and judged.get("new_to_check", 0) > judged.get("in_use_to_check", 0):
-        parts.append(f"it would have asked you to check {judged['new_to_check']:,} of {judged.get('n', 0):,} of your "
-                     f"checked digits set aside to test it, the model in use {judged['in_use_to_check']:,}")
+    unchecked = f.get("unchecked") or {}
+    if unchecked and unchecked.get("new_to_check", 0) > unchecked.get("in_use_to_check", 0):
+        parts.append(f"it would have asked you to check {unchecked['new_to_check']:,} of {unchecked.get('n', 0):,} "
+                     f"digits not checked yet, the model in use {unchecked['in_use_to_check']:,}")
     if any("held-out" in reason for reason in r.reasons):
         parts.append(f"right on {_pct(after.get('heldout'))} of {f.get('n_heldout', 0):,} handwritten digits it never "
                      f"saw, against {_pct(before.get('heldout'))} before")
@@ -369,16 +383,11 @@ def _subset(samples: LabelledCells, keep: np.ndarray) -> LabelledCells:
                          sources=[s for s, k in zip(samples.sources, keep) if k])
 
 
-def _judge(model: DigitModel, samples: LabelledCells, settings: BatchSettings) -> tuple[float, int]:
-    """(share read right, how many would go to a person) on ``samples``, at the threshold the batch
-    would have with ``model`` (its own for the target, or the one set by hand)."""
+def _right(model: DigitModel, samples: LabelledCells) -> float:
+    """Share of ``samples`` ``model`` reads right."""
     if not len(samples.labels):
-        return float("nan"), 0
-    probs = model.predict_proba(samples.cells)
-    threshold = (model.threshold_for(settings.target_error) if settings.threshold_source == "target"
-                 else settings.threshold)
-    to_check = sum(digit_to_check(*reading_of(p), threshold) for p in probs)
-    return float(np.mean(probs.argmax(axis=1) == samples.labels)), int(to_check)
+        return float("nan")
+    return float(np.mean(model.predict_proba(samples.cells).argmax(axis=1) == samples.labels))
 
 
 def _balanced(settings: RetrainSettings, n: int, origin: DigitModel, number: int) -> RetrainSettings:
@@ -390,6 +399,31 @@ def _balanced(settings: RetrainSettings, n: int, origin: DigitModel, number: int
     replay = len(origin.replay_labels) if origin.replay_labels is not None else 0
     copies = settings.replay_copies if replay == 0 else max(settings.replay_copies, math.ceil(office / replay) - 1)
     return dataclasses.replace(settings, seed=settings.seed + number, replay_copies=copies)
+
+
+def _unchecked_sample(batch: Batch, pages: int) -> np.ndarray:
+    """Model input of the written boxes no person has handled on up to ``pages`` pages spread over the
+    batch (cut again as the reader cuts them), to preview what a model would send to a person."""
+    ids = pages_with_open_digits(batch)
+    if len(ids) > pages:
+        ids = [ids[int(i)] for i in np.linspace(0, len(ids) - 1, pages)]
+    stored = StoredPages(batch, keep=1)
+    cells = []
+    for page_id in ids:
+        for box in open_boxes(batch, page_id):
+            cell = stored.cell(page_id, box.field_boxes[box.box])
+            if cell is not None and not cell.blank:
+                cells.append(cell.mnist)
+    return np.stack(cells).astype(np.float32) if cells else np.zeros((0, 28, 28), np.float32)
+
+
+def _sent_to_person(model: DigitModel, cells: np.ndarray, settings: BatchSettings) -> int:
+    """How many of ``cells`` would go to a person, at the threshold the batch would have with ``model``."""
+    if not len(cells):
+        return 0
+    threshold = (model.threshold_for(settings.target_error) if settings.threshold_source == "target"
+                 else settings.threshold)
+    return int(sum(digit_to_check(*reading_of(p), threshold) for p in model.predict_proba(cells)))
 
 
 def train_round(
@@ -410,8 +444,9 @@ def train_round(
     so neither model ever learned from them); it is accepted when it passes
     the gate of :func:`recognizer.digits.retrain.retrain` against that model
     (not worse on held-back checked digits, held-out MNIST within 0.3 points)
-    and reads the digits kept aside to judge at least as well as ``model``
-    while sending no more of them to a person.
+    and reads the digits kept aside to judge at least as well as ``model``,
+    and it sends no more of the unchecked digits of :data:`PREVIEW_PAGES`
+    pages to a person.
 
     ``should_stop`` is asked between steps and between ensemble members;
     when it says yes, :class:`LearningCancelled` is raised and nothing is
@@ -450,16 +485,20 @@ def train_round(
                    settings=_balanced(settings, int((~judge).sum()), origin, number))
     step("Judging the new model…")
     kept, batch_settings = _subset(samples, judge), batch.settings
-    (now, now_check), (new, new_check) = _judge(model, kept, batch_settings), _judge(result.model, kept, batch_settings)
-    result.figures["judged"] = {"n": int(judge.sum()), "in_use": now, "new": new,
-                                "in_use_to_check": now_check, "new_to_check": new_check}
+    now, new = _right(model, kept), _right(result.model, kept)
+    result.figures["judged"] = {"n": int(judge.sum()), "in_use": now, "new": new}
     if new < now:
         result.reasons.append(f"on the {int(judge.sum()):,} checked digits kept aside to judge it, it read "
                               f"{new:.2%} right and the model in use {now:.2%}")
-    if new_check > now_check:
-        result.reasons.append(f"of the {int(judge.sum()):,} checked digits kept aside to judge it, it would send "
-                              f"{new_check:,} to a person and the model in use {now_check:,}")
-    if new < now or new_check > now_check:
+    step("Trying it on unchecked digits…")
+    unchecked = _unchecked_sample(batch, PREVIEW_PAGES)
+    now_open = _sent_to_person(model, unchecked, batch_settings)
+    new_open = _sent_to_person(result.model, unchecked, batch_settings)
+    result.figures["unchecked"] = {"n": int(len(unchecked)), "in_use_to_check": now_open, "new_to_check": new_open}
+    if new_open > now_open:
+        result.reasons.append(f"of {len(unchecked):,} unchecked digits on up to {PREVIEW_PAGES} pages it would send "
+                              f"{new_open:,} to a person and the model in use {now_open:,}")
+    if new < now or new_open > now_open:
         result.accepted = False
         result.model.metadata["retraining"].update(accepted=False, reasons=list(result.reasons))
     result.model.metadata["retraining"]["judged"] = result.figures["judged"]

@@ -229,7 +229,7 @@ class ModelPanel(QWidget):
         self.learning.setText(f"learning now: {running}" if running is not None
                               else learning_in_words(settings, checked))
         last = settings.learning_last if settings is not None else None
-        self.last_round.setText(LearningRound.from_json(last).in_words() if last else "none yet")
+        self.last_round.setText(LearningRound.from_json(last).in_full() if last else "none yet")
 
     def show_model(self, model: DigitModel | None, settings: BatchSettings | None, samples: int | None) -> None:
         if model is None:

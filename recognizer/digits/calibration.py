@@ -11,7 +11,11 @@ retraining (:func:`recognizer.digits.retrain.retrain`); see :func:`calibrate`:
    (``not_a_digit_prior``, a design assumption).
 2. The threshold curve behind ``DigitModel.threshold_for`` is fitted
    (:func:`smoothed_residual_curve`) on the validation digits plus 10 mildly
-   augmented copies of each (:func:`recognizer.digits.augment.mild_copies`).
+   augmented copies of each (:func:`recognizer.digits.augment.mild_copies`),
+   a share of them (``calibration_low_res``, 10 % for the committee model, as
+   in its training mix) turned into low-resolution captures
+   (:func:`recognizer.digits.augment.low_resolution`), so that the threshold
+   also answers for faxed and coarsely scanned boxes.
 
 Threshold curve, chosen by measurement (same trained members, offset 3; held-out
 figures: threshold from the curve, share of held-out digits below it, and
@@ -53,7 +57,7 @@ import numpy as np
 from scipy.optimize import minimize_scalar
 from sklearn.linear_model import LogisticRegression
 
-from recognizer.digits.augment import mild_copies
+from recognizer.digits.augment import low_resolution, mild_copies
 from recognizer.digits.model import NOT_A_DIGIT, DigitModel
 
 
@@ -68,6 +72,8 @@ class CalibrationSettings(Protocol):
 
     @property
     def calibration_strength(self) -> float: ...
+
+    # optional: ``calibration_low_res`` (share of the copies made low-resolution; 0 when absent)
 
 
 def fit_temperature(proba: np.ndarray, labels: np.ndarray, weights: np.ndarray | None = None) -> float:
@@ -240,7 +246,8 @@ CALIBRATION_METHOD = (
     "not-a-digit logit offset and temperature (Guo et al. 2017) fitted jointly by maximum likelihood on "
     "the validation digits and generated validation junk, weighted by the expected junk share; threshold "
     "curve: logistic fit of error vs log(1 - confidence) on the validation digits plus mildly augmented "
-    "copies, residual error at a threshold = mean fitted error probability of the scored digits above it"
+    "copies (a share of them low-resolution captures), residual error at a threshold = mean fitted error "
+    "probability of the scored digits above it"
 )
 
 
@@ -282,6 +289,11 @@ def calibrate(
     model.temperature = temperature
     copies = [mild_copies(digits, rng, strength=settings.calibration_strength)
               for _ in range(settings.calibration_copies)]
+    low_res = float(getattr(settings, "calibration_low_res", 0.0))
+    if low_res > 0 and copies:
+        for batch in copies:
+            for i in np.nonzero(rng.random(len(batch)) < low_res)[0]:
+                batch[i] = low_resolution(batch[i], rng)
     scored = np.concatenate([digits, *copies])
     truth = np.tile(labels, settings.calibration_copies + 1)
     proba = model.predict_proba(scored)
@@ -298,6 +310,7 @@ def calibrate(
         "n_digits": int(len(labels)),
         "n_copies": int(len(scored) - len(labels)),
         "copy_strength": settings.calibration_strength,
+        "copies_low_resolution": low_res,
         "n_junk": int(len(marks)),
         "accuracy": float(np.mean(correct[: len(labels)])),
         "copies_accuracy": float(np.mean(correct[len(labels):])) if len(scored) > len(labels) else None,

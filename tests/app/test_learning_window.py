@@ -97,7 +97,7 @@ def test_a_round_runs_in_the_background_and_says_what_it_gained(learning_window,
         pass
     done = blocker.args[0]
     assert done is not None and window.last_message == done.in_words()
-    assert window.model_panel.last_round.text() == done.in_words()
+    assert window.model_panel.last_round.text() == done.in_full()
     # the 40 digits checked during the round make the next one due: it starts once this one has ended
     assert controller.learning and len(controller.jobs) == 1
     with qtbot.waitSignal(controller.learning_done, timeout=ROUND_TIMEOUT) as second:
@@ -124,8 +124,9 @@ def test_a_refused_round_keeps_the_model_and_says_why(learning_window, qtbot):
     done = blocker.args[0]
     assert done is not None and not done.accepted
     assert window.last_message == done.in_words()
-    assert window.last_message.startswith(f"Kept the model in use: the one learned from your {done.samples:,} "
-                                          "checked digits was not better (")
+    assert window.last_message == (f"Kept the model in use: the one learned from your {done.samples:,} "
+                                   "checked digits was not better.")
+    assert window.model_panel.last_round.text() == done.in_full() != done.in_words()
     assert (window.batch.settings.model_version, window.batch.settings.model_path) == (version, path)
     assert window.model.version == version
     assert window.batch.settings.learning_rounds == 1
