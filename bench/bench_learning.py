@@ -39,7 +39,7 @@ Usage::
 
     python bench/bench_learning.py                     # 300 cards, about 10 minutes on 2 cores
     python bench/bench_learning.py --cards 100 --every 200
-    python bench/bench_learning.py --keep /tmp/cards   # keep (and reuse) the cards and the batch as read
+    python bench/bench_learning.py --keep cards        # keep (and reuse) the cards and the batch as read
 """
 
 from __future__ import annotations

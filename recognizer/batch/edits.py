@@ -24,6 +24,8 @@ from typing import NamedTuple
 
 import numpy as np
 
+from recognizer.states import State
+
 __all__ = [
     "DigitSnapshot",
     "FieldSnapshot",
@@ -158,11 +160,19 @@ class NewReading(NamedTuple):
 
 def store_readings(conn: sqlite3.Connection, readings: Iterable[NewReading], *, model_version: str) -> None:
     """Store new readings of boxes no person has handled: each box's value becomes
-    the text read, its probabilities are kept as little-endian float32."""
+    the text read, its probabilities are kept as little-endian float32.
+
+    A box that a person handled after the readings were made (its state is no
+    longer ``read`` or ``to check``, or its field was resolved as a whole) is
+    left as it is: readings are computed outside the transaction that stores
+    them, and a person's decision always wins.
+    """
     conn.executemany(
-        "UPDATE digits SET probs = ?, prediction = ?, confidence = ?, model_version = ?, value = ? WHERE id = ?",
+        "UPDATE digits SET probs = ?, prediction = ?, confidence = ?, model_version = ?, value = ? "
+        "WHERE id = ? AND NOT blank AND state IN (?, ?) "
+        "AND field_id IN (SELECT id FROM fields WHERE resolution IS NULL)",
         [(np.asarray(r.probs, "<f4").tobytes(), r.prediction, float(r.confidence), model_version, r.prediction,
-          r.digit_id) for r in readings],
+          r.digit_id, State.READ.value, State.TO_CHECK.value) for r in readings],
     )
 
 

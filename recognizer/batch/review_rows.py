@@ -210,10 +210,11 @@ def action_log(batch: Batch) -> list[ActionRow]:
 
 
 def pages_with_open_digits(batch: Batch) -> list[int]:
-    """Ids of the pages with written boxes no person has handled (``read`` or ``to check``), in id order."""
+    """Ids of the pages with written boxes no person has handled (``read`` or ``to check``, in a field
+    no person has resolved as a whole, for example as unreadable), in id order."""
     return [r[0] for r in batch.rows(
         "SELECT DISTINCT f.page_id FROM digits d JOIN fields f ON f.id = d.field_id "
-        "WHERE NOT d.blank AND d.state IN (?, ?) ORDER BY f.page_id", _OPEN)]
+        "WHERE NOT d.blank AND d.state IN (?, ?) AND f.resolution IS NULL ORDER BY f.page_id", _OPEN)]
 
 
 @dataclass(frozen=True)
@@ -228,11 +229,12 @@ class OpenBox:
 
 
 def open_boxes(batch: Batch, page_id: int) -> list[OpenBox]:
-    """The written boxes of a page no person has handled (``read`` or ``to check``)."""
+    """The written boxes of a page no person has handled (``read`` or ``to check``), leaving out the
+    fields a person resolved as a whole (for example as unreadable): their value is the person's."""
     rows = batch.rows(
         "SELECT d.id, d.box, d.prediction, f.id AS field_id, f.boxes FROM digits d "
         "JOIN fields f ON f.id = d.field_id "
-        "WHERE f.page_id = ? AND NOT d.blank AND d.state IN (?, ?)",
+        "WHERE f.page_id = ? AND NOT d.blank AND d.state IN (?, ?) AND f.resolution IS NULL",
         (page_id, *_OPEN),
     )
     edges: dict[int, tuple[BoxEdges, ...]] = {}

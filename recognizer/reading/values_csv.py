@@ -23,12 +23,24 @@ Digits table columns: ``file, page, field, box`` (box numbered from 1, left to
 right), ``digit`` (``?`` for a mark read as "not a digit"), ``confidence``,
 ``p0`` … ``p9`` (the probability of each digit) and ``p_not_digit``. Empty
 boxes have no row.
+
+Spreadsheet safety (every CSV the program writes goes through
+:func:`csv_writer`): a text cell that a spreadsheet would take as a formula
+(one starting with ``=``, ``+``, ``-``, ``@``, a tab or a carriage return,
+for example a scan named ``=HYPERLINK(...).png``) is written with a leading
+apostrophe, the common practice (no source: spreadsheet programs show the
+cell as text and hide the apostrophe). A cell that is a plain number
+(``-12``, ``+3.5``) is never altered, so values stay as read. A file name
+that is not valid UTF-8 (bytes the file system gave Python as lone
+surrogates) is written with those bytes shown as ``\\xNN``, so the file can
+still be told apart and found.
 """
 
 from __future__ import annotations
 
 import csv
 import os
+import re
 from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -38,7 +50,10 @@ from recognizer.reading.page import PageRead
 from recognizer.scans.files import ScanProblem
 from recognizer.states import common_layout, layout_reasons
 
-__all__ = ["ValuesTable", "DigitsWriter", "field_sort_key", "open_csv", "csv_writer"]
+__all__ = ["ValuesTable", "DigitsWriter", "field_sort_key", "open_csv", "csv_writer", "safe_cell"]
+
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+_NUMBER = re.compile(r"[+-]?(\d+(\.\d*)?|\.\d+)")
 
 
 def open_csv(path: str | os.PathLike) -> TextIO:
@@ -46,9 +61,43 @@ def open_csv(path: str | os.PathLike) -> TextIO:
     return open(path, "w", newline="", encoding="utf-8")
 
 
-def csv_writer(fh: TextIO):
-    """A CSV writer for ``fh`` (from :func:`open_csv`): RFC 4180, CRLF line ends."""
-    return csv.writer(fh, lineterminator="\r\n", quoting=csv.QUOTE_MINIMAL)
+def safe_cell(cell: object) -> object:
+    """``cell`` as it may go into a CSV a spreadsheet will open (see the module docstring).
+
+    >>> safe_cell("=HYPERLINK(1)"), safe_cell("-12"), safe_cell("0412"), safe_cell(7)
+    ("'=HYPERLINK(1)", '-12', '0412', 7)
+    >>> safe_cell("caf\\udce9.png")
+    'caf\\\\xe9.png'
+    """
+    if not isinstance(cell, str):
+        return cell
+    try:
+        cell.encode("utf-8")
+    except UnicodeEncodeError:
+        cell = cell.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+    if cell.startswith(_FORMULA_START) and not _NUMBER.fullmatch(cell):
+        return "'" + cell
+    return cell
+
+
+class _SafeWriter:
+    """A ``csv.writer`` whose rows go through :func:`safe_cell`."""
+
+    def __init__(self, fh: TextIO) -> None:
+        self._w = csv.writer(fh, lineterminator="\r\n", quoting=csv.QUOTE_MINIMAL)
+
+    def writerow(self, row) -> None:
+        self._w.writerow([safe_cell(c) for c in row])
+
+    def writerows(self, rows) -> None:
+        for row in rows:
+            self.writerow(row)
+
+
+def csv_writer(fh: TextIO) -> _SafeWriter:
+    """A CSV writer for ``fh`` (from :func:`open_csv`): RFC 4180, CRLF line ends, cells made
+    spreadsheet-safe by :func:`safe_cell`."""
+    return _SafeWriter(fh)
 
 
 def field_sort_key(name: str) -> tuple[int, str]:

@@ -79,6 +79,25 @@ def test_new_readings_replace_prediction_value_probabilities_and_model(batch):
     np.testing.assert_array_equal(batch.digit_probs(ids[2]), probs.astype(np.float32))
 
 
+def test_new_readings_never_touch_a_box_a_person_handled_meanwhile(batch):
+    # readings are computed outside the transaction that stores them: a box checked in
+    # between, or a field resolved as a whole, keeps the person's value
+    fid = field_id(batch, "a.png", 1, "f01")
+    ids = digit_ids(batch, fid)
+    probs = np.linspace(0.0, 1.0, 11)
+    with batch.transaction() as conn:
+        edits.set_digits(conn, [(ids[1], "5", State.CORRECTED)])
+        edits.store_readings(conn, [NewReading(ids[1], probs, "7", 0.93), NewReading(ids[2], probs, "7", 0.93),
+                                    NewReading(ids[0], probs, "7", 0.93)], model_version="fake-2")
+    rows = batch.rows("SELECT value, state, model_version FROM digits WHERE field_id = ? ORDER BY box", (fid,))
+    assert [r["value"] for r in rows] == ["", "5", "7"]  # a blank box is not a written box either
+    assert rows[1]["state"] == State.CORRECTED and rows[1]["model_version"] != "fake-2"
+    with batch.transaction() as conn:
+        edits.set_resolution(conn, fid, State.UNREADABLE)
+        edits.store_readings(conn, [NewReading(ids[2], probs, "3", 0.99)], model_version="fake-3")
+    assert batch.rows("SELECT value FROM digits WHERE id = ?", (ids[2],))[0]["value"] == "7"
+
+
 def test_the_action_log_finds_the_last_action_in_effect_by_reviewer_field_and_order(batch):
     fid = field_id(batch, "a.png", 1, "f01")
     kinds = ("set field", "confirm field")
