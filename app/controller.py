@@ -321,8 +321,8 @@ class BatchController(QObject):
             parts.append("stopped: read the same scans again to read the rest")
         self.message.emit("; ".join(parts) + ".")
         if summary.problems:
-            lines = [f"{Path(p.source).name}" + (f", page {p.page}" if p.page else "") + f": {p.reason}"
-                     for p in summary.problems[:12]]
+            # the same problem lines as `inkcount read` prints (ScanProblem.line), by file name
+            lines = [p.line(name_only=True) for p in summary.problems[:12]]
             more = len(summary.problems) - len(lines)
             self.problem.emit("Some scans could not be read",
                               "These were left out (the rest was read):\n\n" + "\n".join(lines)

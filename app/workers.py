@@ -138,13 +138,16 @@ class ReadWorker(Worker):
         self.model = model
 
     def work(self):
+        # count_pages is the guarded probe (headers only, never raises); a file it
+        # refuses counts no pages and comes back from ingest_scans as a problem line
         total = sum(n for n in (count_pages(p) for p in self.files) if isinstance(n, int))
         done = 0
 
         def on_result(result) -> None:
-            nonlocal done
-            done += 1
+            nonlocal done, total
             page = getattr(result, "page", None)
+            done += page is not None  # a problem with a whole file is no page of the total
+            total = max(total, done)
             self.progress.emit(done, total, f"{Path(result.source).name}" + (f", page {page}" if page else ""))
 
         return ingest_scans(

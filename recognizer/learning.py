@@ -70,7 +70,14 @@ from recognizer.batch.review_rows import open_boxes, pages_with_open_digits
 from recognizer.batch.samples import StoredPages, gather_cells
 from recognizer.batch.store import Batch, BatchSettings
 from recognizer.digits.model import DigitModel
-from recognizer.digits.retrain import MIN_SAMPLES, LabelledCells, RetrainResult, RetrainSettings, retrain
+from recognizer.digits.retrain import (
+    MIN_SAMPLES,
+    LabelledCells,
+    RetrainResult,
+    RetrainSettings,
+    RetrainStopped,
+    retrain,
+)
 from recognizer.reading.page import reading_of
 from recognizer.review import reread_unchecked
 from recognizer.states import State, digit_to_check
@@ -134,6 +141,7 @@ def learn(
     heldout: tuple[np.ndarray, np.ndarray] | None = None,
     measure: bool = False,
     progress: Callable[[str], None] | None = None,
+    should_stop: Callable[[], bool] | None = None,
 ) -> RetrainResult:
     """Fine-tune ``model`` on ``samples`` and judge the result.
 
@@ -146,6 +154,9 @@ def learn(
     measure : bool
         Also measure the new model on the whole held-out set and keep the
         figures in ``metadata["evaluation"]`` (what the model panel shows).
+    should_stop : callable() -> bool, optional
+        Asked during fine-tuning (before every mini-batch):
+        :class:`recognizer.digits.retrain.RetrainStopped` when it says yes.
 
     Raises
     ------
@@ -160,7 +171,8 @@ def learn(
     if heldout is None:
         say("Loading the 5,000 held-out digits…")
         heldout = load_heldout()
-    result = retrain(model, samples, heldout=heldout, settings=settings, batches=list(counts), progress=progress)
+    result = retrain(model, samples, heldout=heldout, settings=settings, batches=list(counts), progress=progress,
+                     should_stop=should_stop)
     if measure:
         say("Measuring the new model on the held-out digits…")
         figures = evaluate_model(result.model, *heldout)
@@ -481,8 +493,12 @@ def train_round(
         step("Loading the 5,000 held-out digits…")
         heldout = heldout_set()
     step(f"Learning from {int((~judge).sum()):,} checked digits…")
-    result = learn(origin, _subset(samples, ~judge), counts=counts, heldout=heldout, measure=False, progress=step,
-                   settings=_balanced(settings, int((~judge).sum()), origin, number))
+    try:
+        result = learn(origin, _subset(samples, ~judge), counts=counts, heldout=heldout, measure=False,
+                       progress=step, should_stop=stop,
+                       settings=_balanced(settings, int((~judge).sum()), origin, number))
+    except RetrainStopped as exc:  # asked during fine-tuning: closing the window does not wait for a member
+        raise LearningCancelled("fine-tuning") from exc
     step("Judging the new model…")
     kept, batch_settings = _subset(samples, judge), batch.settings
     now, new = _right(model, kept), _right(result.model, kept)
@@ -493,6 +509,8 @@ def train_round(
     step("Trying it on unchecked digits…")
     unchecked = _unchecked_sample(batch, PREVIEW_PAGES)
     now_open = _sent_to_person(model, unchecked, batch_settings)
+    if stop():
+        raise LearningCancelled("trying it on unchecked digits")
     new_open = _sent_to_person(result.model, unchecked, batch_settings)
     result.figures["unchecked"] = {"n": int(len(unchecked)), "in_use_to_check": now_open, "new_to_check": new_open}
     if new_open > now_open:

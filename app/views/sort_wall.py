@@ -1,5 +1,11 @@
 """The sort wall: every digit still to check as a small crop, grouped by the digit the
-reader saw, so that a wrong one stands out among its neighbours.
+reader saw, each group led by the crops least like the group's typical shape.
+
+Within a group the crops come in the order of :func:`recognizer.review.rank_group`:
+the least like the group's typical shape first. The typical shape itself (the
+group's mean model input) is drawn beside the group, labelled "typical 7". The
+crops far from it are marked *odd* without relying on colour: they come first,
+with a thick frame, their rank in a badge and the word "odd" under them.
 
 Select crops with the mouse (click, Shift+click, Ctrl+click) or the keyboard
 (arrows, Shift+arrows, Ctrl+A), then::
@@ -7,21 +13,29 @@ Select crops with the mouse (click, Shift+click, Ctrl+click) or the keyboard
     0-9          this is the right digit for every selected crop
     Delete       no digit here (a stray mark)
     Enter        the reading is right for the selected crops
-    Ctrl+Enter   the reading is right for the whole group
+    Ctrl+Enter   the reading is right for the whole group (asked first)
 
-A crop handled leaves its group. Every action is one call of
-:mod:`recognizer.review`, committed at once, inside the window's
-:class:`app.batch_access.SwitchGuard` (``guard``): nothing is saved while
-learning reads the batch again, and "the reading is right" is not saved for
-crops read again since the wall was built (it is built again instead).
+"All are 7" (or Ctrl+Enter) asks first, with the count ("Confirm 238 digits as
+7?"), and leaves out every crop of the group the clerk has selected or changed
+since the batch was opened: those are checked one by one. A crop handled
+leaves its group; a group emptied leaves the wall. Selecting a crop emits
+``crop_selected(page_id, field_id, box)`` so the window can show its page
+with the field picked out.
+
+Every action is one call of :mod:`recognizer.review`, committed at once,
+inside the window's :class:`app.batch_access.SwitchGuard` (``guard``): nothing
+is saved while learning reads the batch again, and "the reading is right" is
+not saved for crops read again since the wall was built (it is built again
+instead).
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 
 from PySide6.QtCore import QSize, Qt, Signal
-from PySide6.QtGui import QIcon, QPixmap
+from PySide6.QtGui import QIcon
 from PySide6.QtWidgets import (
     QAbstractItemView,
     QHBoxLayout,
@@ -29,6 +43,7 @@ from PySide6.QtWidgets import (
     QListView,
     QListWidget,
     QListWidgetItem,
+    QMessageBox,
     QPushButton,
     QScrollArea,
     QVBoxLayout,
@@ -38,17 +53,31 @@ from PySide6.QtWidgets import (
 from recognizer.batch import Batch, Change
 from recognizer.batch.queries import digit_states
 from recognizer.digits.model import CLASSES, NOT_A_DIGIT
-from recognizer.review import TO_CHECK, ReviewError, ReviewItem, ReviewQueue, confirm, set_digit
+from recognizer.review import (
+    TO_CHECK,
+    GroupRanking,
+    RankedCrop,
+    ReviewError,
+    ReviewItem,
+    ReviewQueue,
+    confirm,
+    rank_group,
+    set_digit,
+)
 from recognizer.states import NOT_A_DIGIT_MARK
 
 from ..batch_access import SWITCH_WORDS, ImageCache, SwitchGuard
+from .wall_tiles import TILE, crop_tile, typical_tile
 
 __all__ = ["SortWall", "WALL_HELP"]
 
 WALL_HELP = ("Select crops (click, Shift/Ctrl+click, arrows) · type 0-9 for the right digit · Del no digit · "
-             "Enter reading is right · Ctrl+Enter whole group is right")
-_ICON = QSize(44, 52)
+             "Enter reading is right · Ctrl+Enter whole group is right (asked first; crops you selected are "
+             "left out) · odd crops (framed, numbered) come first")
 _DIGIT = Qt.ItemDataRole.UserRole
+_PLACE = Qt.ItemDataRole.UserRole + 1
+_RANK = Qt.ItemDataRole.UserRole + 2
+_TEXT_ROW = 16  # room for "odd" under a tile
 
 
 def _group_of(prediction: str) -> int:
@@ -60,6 +89,14 @@ def _group_title(group: int, n: int) -> str:
     return f"{what.capitalize()} — {n} to check"
 
 
+def _as_read(group: int) -> str:
+    return "not a digit" if group == NOT_A_DIGIT else CLASSES[group]
+
+
+def _ordinal(n: int) -> str:
+    return f"{n}{'th' if 10 <= n % 100 <= 20 else {1: 'st', 2: 'nd', 3: 'rd'}.get(n % 10, 'th')}"
+
+
 class _GroupList(QListWidget):
     """One group's crops."""
 
@@ -67,8 +104,8 @@ class _GroupList(QListWidget):
         super().__init__()
         self.wall, self.group = wall, group
         self.setViewMode(QListView.ViewMode.IconMode)
-        self.setIconSize(_ICON)
-        self.setGridSize(QSize(_ICON.width() + 8, _ICON.height() + 8))
+        self.setIconSize(TILE)
+        self.setGridSize(QSize(TILE.width() + 8, TILE.height() + 8 + _TEXT_ROW))
         self.setMovement(QListView.Movement.Static)
         self.setResizeMode(QListView.ResizeMode.Adjust)
         self.setWrapping(True)
@@ -92,17 +129,63 @@ class _GroupList(QListWidget):
             self.wall.set_selected(self, "")
         elif key in (Qt.Key.Key_Return, Qt.Key.Key_Enter):
             if ctrl:
-                self.wall.confirm_group(self.group)
+                self.wall.ask_confirm_group(self.group)
             else:
                 self.wall.confirm_selected(self)
         else:
             super().keyPressEvent(event)
 
 
+class _Group(QWidget):
+    """A group on the wall: its typical shape, title and "All are" button above its crops."""
+
+    def __init__(self, wall: SortWall, group: int, ranking: GroupRanking) -> None:
+        super().__init__()
+        self.group = group
+        layout = QVBoxLayout(self)
+        layout.setContentsMargins(0, 6, 0, 0)
+        header = QHBoxLayout()
+        self.typical = QLabel()
+        self.typical_caption = QLabel()
+        if ranking.typical is not None:
+            self.typical.setPixmap(typical_tile(ranking.typical))
+            self.typical_caption.setText(f"typical {_as_read(group)}")
+            self.typical.setToolTip(f"The typical {_as_read(group)} of this group (the mean of its crops, as the "
+                                    f"model sees them); the crops least like it come first")
+            self.typical.setAccessibleName(f"Typical {_as_read(group)}")
+        shape = QVBoxLayout()
+        shape.addWidget(self.typical, 0, Qt.AlignmentFlag.AlignHCenter)
+        shape.addWidget(self.typical_caption, 0, Qt.AlignmentFlag.AlignHCenter)
+        header.addLayout(shape)
+        self.title = QLabel()
+        f = self.title.font()
+        f.setBold(True)
+        self.title.setFont(f)
+        header.addWidget(self.title, 1)
+        self.button = QPushButton("All right as read" if group == NOT_A_DIGIT else f"All are {CLASSES[group]}")
+        self.button.setToolTip("The reading is right for every crop of this group you have not selected or "
+                               "changed; asks first (Ctrl+Enter in the group)")
+        self.button.setAccessibleName(f"Confirm group {CLASSES[group]}")
+        self.button.clicked.connect(lambda _=False, g=group: wall.ask_confirm_group(g))
+        header.addWidget(self.button)
+        layout.addLayout(header)
+        self.list = _GroupList(wall, group)
+        layout.addWidget(self.list)
+
+
 class SortWall(QScrollArea):
-    """All digits to check, grouped by the digit read."""
+    """All digits to check, grouped by the digit read, the oddest of each group first.
+
+    Signals
+    -------
+    message(text)
+        What was done, in words (for the status line).
+    crop_selected(page_id, field_id, box)
+        A crop became the current one: the window shows its page with the field picked out.
+    """
 
     message = Signal(str)
+    crop_selected = Signal(int, int, int)
 
     def __init__(self, parent=None) -> None:
         super().__init__(parent)
@@ -112,17 +195,29 @@ class SortWall(QScrollArea):
         self.batch: Batch | None = None
         self.cache: ImageCache | None = None
         self.groups: dict[int, _GroupList] = {}
-        self._titles: dict[int, QLabel] = {}
+        self._boxes: dict[int, _Group] = {}
         self._items: dict[int, QListWidgetItem] = {}
+        self._odd: dict[int, int] = {}
+        #: Model inputs of the crops cut so far (a crop never changes): the wall is built again often.
+        self._cells: dict = {}
         self._stale = True
+        #: Crops the clerk selected or changed since the batch was opened: never swept into "All are".
+        self.touched: set[int] = set()
+        self._auto = False
         #: Set by the window: keeps actions away from a model switch.
         self.guard: SwitchGuard | None = None
+        #: Asks (title, question, details) -> yes; a question box by default (tests may replace it).
+        self.ask: Callable[[str, str, str], bool] = self._ask_box
+        self.question_box: QMessageBox | None = None
         self._seen = 0
         self._body = QWidget()
         self._layout = QVBoxLayout(self._body)
+        self._empty: QLabel | None = None
         self.setWidget(self._body)
 
     def set_batch(self, batch: Batch | None, cache: ImageCache | None) -> None:
+        if batch is not self.batch:
+            self.touched, self._cells = set(), {}
         self.batch, self.cache = batch, cache
         self._stale = True
         if self.isVisible():
@@ -140,7 +235,7 @@ class SortWall(QScrollArea):
     # ---- building
 
     def load(self) -> None:
-        """Build the wall from the review queue (digits to check, grouped by the digit read)."""
+        """Build the wall from the review queue (digits to check, grouped by the digit read, oddest first)."""
         self._stale = False
         self._seen = -1 if self.guard is None or self.guard.busy else self.guard.generation
         body = QWidget()
@@ -148,53 +243,53 @@ class SortWall(QScrollArea):
         help_label = QLabel(WALL_HELP)
         help_label.setWordWrap(True)
         self._layout.addWidget(help_label)
-        self.groups, self._titles, self._items = {}, {}, {}
+        self.groups, self._boxes, self._items, self._odd = {}, {}, {}, {}
         items = ReviewQueue(self.batch, order="digit").items() if self.batch is not None else []
+        by_group: dict[int, list[ReviewItem]] = {}
         for item in items:
-            self._add(item)
-        if not items:
-            self._layout.addWidget(QLabel("No single digits left to check."))
+            by_group.setdefault(_group_of(item.read), []).append(item)
+        for group in sorted(by_group):  # digit order, "not a digit" last
+            members = by_group[group]
+            ranking = rank_group(self.batch, [(i.digit_id, i.field_id, i.box) for i in members], cells=self._cells)
+            box = _Group(self, group, ranking)
+            self._layout.addWidget(box)
+            self._boxes[group], self.groups[group] = box, box.list
+            box.list.itemSelectionChanged.connect(lambda lst=box.list: self._selection_changed(lst))
+            box.list.currentItemChanged.connect(self._current_changed)
+            info = {i.digit_id: i for i in members}
+            for crop in ranking.crops:
+                self._add(box.list, info[crop.digit_id], crop, group)
+        self._empty = QLabel("No single digits left to check.")
+        self._empty.setVisible(not self.groups)
+        self._layout.addWidget(self._empty)
         self._layout.addStretch(1)
         self.setWidget(body)
         self._body = body
         self._retitle()
         self._fit()
 
-    def _group(self, group: int) -> _GroupList:
-        if group not in self.groups:
-            header = QHBoxLayout()
-            title = QLabel()
-            f = title.font()
-            f.setBold(True)
-            title.setFont(f)
-            header.addWidget(title, 1)
-            button = QPushButton("All right as read" if group == NOT_A_DIGIT else f"All are {CLASSES[group]}")
-            button.setToolTip("The reading is right for every crop of this group (Ctrl+Enter in the group)")
-            button.setAccessibleName(f"Confirm group {CLASSES[group]}")
-            button.clicked.connect(lambda _=False, g=group: self.confirm_group(g))
-            header.addWidget(button)
-            lst = _GroupList(self, group)
-            # Groups in digit order, "not a digit" last.
-            position = sum(1 for g in self.groups if g < group)
-            self._layout.insertLayout(1 + 2 * position, header)
-            self._layout.insertWidget(2 + 2 * position, lst)
-            self.groups[group], self._titles[group] = lst, title
-        return self.groups[group]
-
-    def _add(self, item: ReviewItem) -> None:
-        lst = self._group(_group_of(item.read))
-        icon = QIcon(QPixmap.fromImage(self.cache.crop(item.digit_id))) if self.cache else QIcon()
-        entry = QListWidgetItem(icon, "")
+    def _add(self, lst: _GroupList, item: ReviewItem, crop: RankedCrop, group: int) -> None:
+        image = self.cache.crop(item.digit_id) if self.cache else None
+        entry = QListWidgetItem(QIcon(crop_tile(image, rank=crop.rank)), "odd" if crop.odd else "")
         entry.setData(_DIGIT, item.digit_id)
-        entry.setToolTip(f"{item.file.rsplit('/', 1)[-1]}, page {item.page}, field {item.field}, box {item.box + 1}: "
-                         f"sure {100 * (item.confidence or 0):.1f} %")
+        entry.setData(_PLACE, (crop.page_id, crop.field_id, crop.box))
+        entry.setData(_RANK, crop.rank)
+        where = (f"{item.file.rsplit('/', 1)[-1]}, page {item.page}, field {item.field}, box {item.box + 1}: "
+                 f"sure {100 * (item.confidence or 0):.1f} %")
+        if crop.odd:
+            where = (f"Odd, {_ordinal(crop.rank)} least like the typical {_as_read(group)} "
+                     f"({crop.score:.1f} times the usual distance). " + where)
+        entry.setToolTip(where)
         lst.addItem(entry)
         self._items[item.digit_id] = entry
+        if crop.odd:
+            self._odd[item.digit_id] = crop.rank
 
     def _retitle(self) -> None:
         for group, lst in self.groups.items():
-            title = _group_title(group, lst.count())
-            self._titles[group].setText(title)
+            odd = sum(1 for i in range(lst.count()) if lst.item(i).data(_RANK))
+            title = _group_title(group, lst.count()) + (f" · {odd} odd first" if odd else "")
+            self._boxes[group].title.setText(title)
             lst.setAccessibleName(title)
 
     def _fit(self) -> None:
@@ -202,14 +297,46 @@ class SortWall(QScrollArea):
         for lst in self.groups.values():
             lst.fit_height(width)
 
+    def _drop_empty(self) -> None:
+        """Take every emptied group off the wall."""
+        for group in [g for g, lst in self.groups.items() if lst.count() == 0]:
+            box = self._boxes.pop(group)
+            del self.groups[group]
+            self._layout.removeWidget(box)
+            box.hide()
+            box.deleteLater()
+        if self._empty is not None:
+            self._empty.setVisible(not self.groups)
+
     def count(self, group: int) -> int:
         return self.groups[group].count() if group in self.groups else 0
 
     def digit_ids(self, group: int) -> list[int]:
+        """The crops of a group in the order shown (the oddest first)."""
         lst = self.groups.get(group)
         return [] if lst is None else [lst.item(i).data(_DIGIT) for i in range(lst.count())]
 
-    # ---- following the batch
+    def odd_ids(self, group: int) -> list[int]:
+        """The crops of a group marked odd, the oddest first."""
+        return [d for d in self.digit_ids(group) if d in self._odd]
+
+    def sweep_ids(self, group: int) -> list[int]:
+        """What "All are" confirms: the group's crops the clerk has not selected or changed."""
+        return [d for d in self.digit_ids(group) if d not in self.touched]
+
+    def typical_caption(self, group: int) -> str:
+        box = self._boxes.get(group)
+        return "" if box is None else box.typical_caption.text()
+
+    # ---- following the clerk and the batch
+
+    def _selection_changed(self, lst: _GroupList) -> None:
+        if not self._auto:
+            self.touched.update(self._selected(lst))
+
+    def _current_changed(self, current: QListWidgetItem | None, _previous=None) -> None:
+        if current is not None and current.data(_PLACE) is not None:
+            self.crop_selected.emit(*current.data(_PLACE))
 
     def on_change(self, change: Change) -> None:
         if self.batch is None:
@@ -225,13 +352,19 @@ class SortWall(QScrollArea):
             entry = self._items.get(digit_id)
             if state != TO_CHECK and entry is not None:
                 lst = entry.listWidget()
-                lst.takeItem(lst.row(entry))
+                self._auto = True
+                try:
+                    lst.takeItem(lst.row(entry))
+                finally:
+                    self._auto = False
                 del self._items[digit_id]
+                self._odd.pop(digit_id, None)
             elif state == TO_CHECK and entry is None:
                 self._stale = True
         if self._stale and self.isVisible():
             self.load()
             return
+        self._drop_empty()
         self._retitle()
         self._fit()
 
@@ -244,6 +377,7 @@ class SortWall(QScrollArea):
         """Give every selected crop of ``lst`` the digit ``value`` ("" = no digit)."""
         ids = self._selected(lst)
         row = min((lst.row(e) for e in lst.selectedItems()), default=0)
+        self.touched.update(ids)
         self._apply(ids, lambda d: set_digit(self.batch, d, value),
                     f"Set {len(ids)} crop{'s' if len(ids) != 1 else ''} to {value or 'no digit'}.")
         self._select_row(lst, row)
@@ -251,12 +385,55 @@ class SortWall(QScrollArea):
     def confirm_selected(self, lst: QListWidget) -> None:
         ids = self._selected(lst)
         row = min((lst.row(e) for e in lst.selectedItems()), default=0)
+        self.touched.update(ids)
         self._apply(ids, lambda d: confirm(self.batch, digit=d), f"Confirmed {len(ids)} as read.", as_read=True)
         self._select_row(lst, row)
 
-    def confirm_group(self, group: int) -> None:
-        ids = self.digit_ids(group)
+    def ask_confirm_group(self, group: int) -> bool:
+        """"All are": ask, with the count, then confirm the crops not selected or changed. True if confirmed."""
+        ids = self.sweep_ids(group)
+        left_out = self.count(group) - len(ids)
+        if not ids:
+            if left_out:
+                self.message.emit(f"Nothing confirmed: you selected or changed each of the {left_out} crops left "
+                                  f"in this group; check them one by one.")
+            return False
+        noun = "marks" if group == NOT_A_DIGIT else "digits"
+        what = "not a digit" if group == NOT_A_DIGIT else CLASSES[group]
+        question = f"Confirm {len(ids):,} {noun if len(ids) != 1 else noun[:-1]} as {what}?"
+        details = [f"Each is saved as read ({what}), at once."]
+        if left_out:
+            details.append(f"{left_out:,} crop{'s' if left_out != 1 else ''} you selected or changed "
+                           f"{'are' if left_out != 1 else 'is'} left out: check {'them' if left_out != 1 else 'it'} "
+                           f"one by one.")
+        odd = sum(1 for d in ids if d in self._odd)
+        if odd:
+            details.append(f"{odd:,} of them look{'s' if odd == 1 else ''} unlike the typical {what} (framed and "
+                           f"numbered, first in the group): look at those before you say yes.")
+        if not self.ask("Confirm the whole group", question, " ".join(details)):
+            return False
+        self.confirm_group(group, ids=ids)
+        return True
+
+    def confirm_group(self, group: int, *, ids: list[int] | None = None) -> None:
+        """Confirm ``ids`` (default: :meth:`sweep_ids`) as read, without asking (:meth:`ask_confirm_group` asks)."""
+        ids = self.sweep_ids(group) if ids is None else ids
         self._apply(ids, lambda d: confirm(self.batch, digit=d), f"Confirmed {len(ids)} as read.", as_read=True)
+
+    def _ask_box(self, title: str, question: str, details: str) -> bool:
+        box = QMessageBox(QMessageBox.Icon.Question, title, question, parent=self)
+        box.setInformativeText(details)
+        yes = box.addButton("Confirm", QMessageBox.ButtonRole.AcceptRole)
+        no = box.addButton(QMessageBox.StandardButton.Cancel)
+        box.setDefaultButton(no)
+        box.setEscapeButton(no)
+        self.question_box = box
+        try:
+            box.exec()
+            return box.clickedButton() is yes
+        finally:
+            self.question_box = None
+            box.deleteLater()
 
     def _apply(self, ids: list[int], action, done: str, *, as_read: bool = False) -> None:
         """``action(digit_id)`` for each of ``ids`` inside the guard; ``as_read``: it accepts the reading shown."""
@@ -284,7 +461,11 @@ class SortWall(QScrollArea):
                 refused.append(str(exc))
         self.message.emit(done if not refused else f"{done} {len(refused)} refused: {refused[0]}")
 
-    @staticmethod
-    def _select_row(lst: QListWidget, row: int) -> None:
+    def _select_row(self, lst: QListWidget, row: int) -> None:
+        """After an action: the crop now at ``row`` becomes the current one (not a choice of the clerk's)."""
         if lst.count():
-            lst.setCurrentRow(min(row, lst.count() - 1))
+            self._auto = True
+            try:
+                lst.setCurrentRow(min(row, lst.count() - 1))
+            finally:
+                self._auto = False

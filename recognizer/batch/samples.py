@@ -73,7 +73,7 @@ def labelled_samples(
         ORDER BY d.id
         """
     )
-    crops = [decode_png(r["crop_png"]) for r in rows]
+    crops = [decode_png(r["crop_png"], batch.path) for r in rows]
     pages = StoredPages(batch)
     cells = []
     for r, crop in zip(rows, crops):

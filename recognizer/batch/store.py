@@ -18,6 +18,16 @@ Storage
 * **Identification**: ``PRAGMA application_id`` = :data:`APPLICATION_ID`
   ("Inkc"), a table ``inkcount_meta`` (format name, creation time, program
   version) and ``PRAGMA user_version`` = schema version.
+* **Creation** is atomic (:mod:`recognizer.batch.creation`): a killed creator
+  leaves no batch or a complete one; of two creators at once the second is
+  told the batch is in use; an empty or half-created file of an older
+  Inkcount is made afresh when opened for writing, a file holding data never.
+* **Checks** (:mod:`recognizer.batch.checks`): opening checks tables,
+  settings, stored JSON and values against the schema version, and a stored
+  image's size is checked before it is decoded; a failure is a
+  :class:`BatchFileError` naming the file and the reason.
+* **Paths**: a scan's path is stored as text, bytes of its name that are not
+  UTF-8 as visible ``\\xNN`` escapes (:func:`stored_path`).
 * **Schema versions**: :data:`recognizer.batch.schema.MIGRATIONS` is an ordered list of functions;
   entry ``i`` brings a file from version ``i`` to ``i + 1`` (entry 0 creates
   the tables of version 1). Opening an older file runs the missing steps, each
@@ -54,15 +64,18 @@ from typing import Any
 import cv2
 import numpy as np
 
-from recognizer import __version__
-from recognizer.batch import schema
-from recognizer.batch.lock import LockHeld, WriterLock
+from recognizer.batch import checks, schema
+from recognizer.batch.opening import (
+    APPLICATION_ID, FORMAT_NAME, BatchFileError, BatchInUseError, build_in_place, check_header, check_ours, connect,
+    leftover, lock_for_writing, worth_a_look,
+)
+from recognizer.batch.lock import WriterLock
 from recognizer.digits.model import timestamp
 from recognizer.reading.page import PageRead
 from recognizer.batch.flags import refresh_layout, refresh_states
 from recognizer.states import DEFAULT_TARGET_ERROR, State
 from recognizer.scans.files import ScanProblem
-from recognizer.forms.template import Template
+from recognizer.forms.template import Template, TemplateError
 from recognizer.forms.template_file import template_from_json, template_to_json
 
 __all__ = [
@@ -77,31 +90,14 @@ __all__ = [
     "Change",
     "encode_png",
     "decode_png",
+    "stored_path",
 ]
 
 SUFFIX = ".inkcount"
-FORMAT_NAME = "inkcount-batch"
-#: ``PRAGMA application_id`` of a batch file: the bytes "Inkc".
-APPLICATION_ID = int.from_bytes(b"Inkc", "big")
-_SQLITE_HEADER = b"SQLite format 3\x00"
 _PNG_LEVEL = 3
 #: Version of the flagging rule of :mod:`recognizer.states` (2: the value as a whole, and page
 #: warnings and layouts only for the fields they concern).
 FLAG_RULE = 2
-_IN_USE = "is in use by another Inkcount window or command"
-
-
-class BatchFileError(Exception):
-    """A batch file that cannot be used; the message names the file and the reason."""
-
-    def __init__(self, path: str | os.PathLike, reason: str) -> None:
-        self.path = str(path)
-        self.reason = reason
-        super().__init__(f"cannot use batch file {self.path!r}: {reason}")
-
-
-class BatchInUseError(BatchFileError):
-    """The batch is open for writing in another process."""
 
 
 # --------------------------------------------------------------------------- records
@@ -160,6 +156,8 @@ class BatchSettings:
     flag_rule: int = 1
 
 
+_SETTING_NAMES = frozenset(f.name for f in dataclasses.fields(BatchSettings))
+
 # --------------------------------------------------------------------------- helpers
 
 
@@ -172,24 +170,37 @@ def encode_png(image: np.ndarray) -> bytes:
     return buf.tobytes()
 
 
-def decode_png(data: bytes) -> np.ndarray:
-    """(M, N) uint8 image back from :func:`encode_png` bytes."""
-    image = cv2.imdecode(np.frombuffer(data, np.uint8), cv2.IMREAD_UNCHANGED)
-    if image is None:
-        raise ValueError("damaged image data in the batch file")
+def decode_png(data: bytes, path: str | os.PathLike | None = None) -> np.ndarray:
+    """(M, N) uint8 image back from :func:`encode_png` bytes.
+
+    The PNG's declared size is checked before it is decoded
+    (:func:`recognizer.batch.checks.check_png`). A damaged or oversized image
+    raises ValueError, or :class:`BatchFileError` naming ``path`` when given.
+    """
+    try:
+        checks.check_png(data)
+        image = cv2.imdecode(np.frombuffer(data, np.uint8), cv2.IMREAD_UNCHANGED)
+        if image is None or image.ndim != 2 or image.dtype != np.uint8:
+            raise ValueError("damaged image data in the batch file")
+    except ValueError as exc:
+        if path is None:
+            raise
+        raise BatchFileError(path, str(exc)) from None
     return image
 
 
-def _check_header(path: Path) -> None:
-    if not path.is_file():
-        raise BatchFileError(path, "no such file")
+def stored_path(path: str | os.PathLike) -> str:
+    """A file's path as the batch keeps it: as given, with bytes of the name that are not UTF-8
+    written as ``\\xNN`` (visible, and two such names stay apart)."""
+    text = os.fsdecode(os.fspath(path))
     try:
-        with open(path, "rb") as fh:
-            head = fh.read(len(_SQLITE_HEADER))
-    except OSError as exc:
-        raise BatchFileError(path, f"cannot read the file ({exc.strerror or exc})") from None
-    if head != _SQLITE_HEADER:
-        raise BatchFileError(path, "not an Inkcount batch file (not an SQLite database)")
+        text.encode("utf-8")
+        return text
+    except UnicodeEncodeError:
+        try:
+            return text.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+        except UnicodeEncodeError:
+            return text.encode("utf-8", "backslashreplace").decode("utf-8")
 
 
 # --------------------------------------------------------------------------- the batch
@@ -225,21 +236,37 @@ class Batch:
 
     @classmethod
     def create(cls, path: str | os.PathLike) -> Batch:
-        """Create a new, empty batch file (refuses to overwrite an existing file)."""
+        """Create a new, empty batch file, atomically (see the module notes).
+
+        Refuses to overwrite an existing file, unless it is an empty or
+        half-created batch file (then it is made afresh).
+
+        Raises
+        ------
+        BatchInUseError
+            Another process is creating or writing this batch.
+        BatchFileError
+            A file of that name exists, or the folder cannot be written.
+        """
         path = Path(path)
-        if path.exists():
+        if path.exists() and not worth_a_look(path):
             raise BatchFileError(path, "a file of that name already exists")
-        lock = _lock(path)
+        return cls._open_locked(path, lock_for_writing(path), create=True, fresh=True)
+
+    @classmethod
+    def _open_locked(cls, path: Path, lock: WriterLock, *, create: bool, fresh: bool = False) -> Batch:
+        """Open ``path`` for writing under ``lock`` (released on failure), creating it first if
+        ``create`` and it is missing or half-created; ``fresh``: it must be created here."""
         try:
-            conn = _connect(path, read_only=False)
-            conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
-            _migrate(conn, path)
-            with _transaction(conn):
-                conn.executemany(
-                    "INSERT INTO inkcount_meta (key, value) VALUES (?, ?)",
-                    [("format", FORMAT_NAME), ("created", timestamp()), ("created_by", f"inkcount {__version__}")],
-                )
-                conn.execute("INSERT INTO settings (key, value) VALUES ('flag_rule', ?)", (json.dumps(FLAG_RULE),))
+            if path.exists() and leftover(path):
+                build_in_place(path, replace=True, settings={'flag_rule': FLAG_RULE})
+            elif not path.exists() and create:
+                build_in_place(path, replace=False, settings={'flag_rule': FLAG_RULE})
+            elif fresh:
+                raise BatchFileError(path, "a file of that name already exists")
+            check_header(path)
+            conn = connect(path, read_only=False)
+            check_ours(conn, path, read_only=False)
         except BaseException:
             lock.release()
             raise
@@ -257,7 +284,9 @@ class Batch:
             Read without taking the writer lock (reads a consistent snapshot
             while another process may be writing).
         create : bool
-            Create the file if it does not exist yet.
+            Create the file if it does not exist yet (atomically, as :meth:`create`).
+            Opened for writing, an empty or half-created batch file (left by an
+            older Inkcount killed while creating it) is made afresh.
 
         Raises
         ------
@@ -268,18 +297,13 @@ class Batch:
             a newer Inkcount.
         """
         path = Path(path)
-        if create and not path.exists():
-            return cls.create(path)
-        _check_header(path)
-        lock = None if read_only else _lock(path)
-        try:
-            conn = _connect(path, read_only=read_only)
-            _check_ours(conn, path, read_only=read_only)
-        except BaseException:
-            if lock:
-                lock.release()
-            raise
-        batch = cls(path, conn, lock)
+        if read_only:
+            check_header(path)
+            conn = connect(path, read_only=True)
+            check_ours(conn, path, read_only=True)
+            batch = cls(path, conn, None)
+        else:
+            batch = cls._open_locked(path, lock_for_writing(path), create=create)
         try:
             if not read_only and batch.settings.flag_rule < FLAG_RULE:
                 with batch.transaction() as conn:  # flagged by an older rule: flag it again, once
@@ -352,9 +376,12 @@ class Batch:
 
     @property
     def settings(self) -> BatchSettings:
-        stored = {r["key"]: json.loads(r["value"]) for r in self.rows("SELECT key, value FROM settings")}
-        known = {f.name for f in dataclasses.fields(BatchSettings)}
-        return BatchSettings(**{k: v for k, v in stored.items() if k in known})
+        """The batch's settings, checked (:class:`BatchFileError` for a damaged one)."""
+        stored = {r["key"]: r["value"] for r in self.rows("SELECT key, value FROM settings")}
+        try:
+            return BatchSettings(**checks.settings_values(stored, _SETTING_NAMES))
+        except ValueError as exc:
+            raise BatchFileError(self.path, str(exc)) from None
 
     def update_settings(self, conn: sqlite3.Connection, **values: Any) -> None:
         """Store settings inside an open :meth:`transaction`."""
@@ -375,14 +402,14 @@ class Batch:
         if not self.rows("SELECT 1 FROM pages WHERE id = ?", (page_id,)):
             raise KeyError(f"no page {page_id}")
         rows = self.rows("SELECT png FROM page_images WHERE page_id = ?", (page_id,))
-        return decode_png(rows[0][0]) if rows else None
+        return decode_png(rows[0][0], self.path) if rows else None
 
     def digit_crop(self, digit_id: int) -> np.ndarray:
         """The crop of one box as read, (h, w) uint8, 0 = ink."""
         rows = self.rows("SELECT crop_png FROM digits WHERE id = ?", (digit_id,))
         if not rows:
             raise KeyError(f"no digit {digit_id}")
-        return decode_png(rows[0][0])
+        return decode_png(rows[0][0], self.path)
 
     def digit_probs(self, digit_id: int) -> np.ndarray | None:
         """The 11 class probabilities of one box, float32, or None for an empty box."""
@@ -399,17 +426,18 @@ class Batch:
     # ---- writing pages (used by ingest_scans)
 
     def add_file(self, path: str | os.PathLike, sha256: str | None, size: int | None) -> int:
-        """Record a source file; return its id."""
+        """Record a source file (its path as :func:`stored_path` writes it); return its id."""
+        text = stored_path(path)
         with self.transaction() as conn:
             # A file that could not be read before is tried again: its old problem goes.
             for (file_id,) in conn.execute(
-                "SELECT id FROM files WHERE sha256 IS NULL AND path = ?", (str(path),)
+                "SELECT id FROM files WHERE sha256 IS NULL AND path = ?", (text,)
             ).fetchall():
                 conn.execute("DELETE FROM pages WHERE file_id = ?", (file_id,))
                 conn.execute("DELETE FROM files WHERE id = ?", (file_id,))
             cur = conn.execute(
                 "INSERT INTO files (path, sha256, size, added) VALUES (?, ?, ?, ?)",
-                (str(path), sha256, size, timestamp()),
+                (text, sha256, size, timestamp()),
             )
             return int(cur.lastrowid)
 
@@ -450,8 +478,13 @@ class Batch:
 
     def templates(self) -> dict[str, Template]:
         """The templates kept in the batch, by label (``orchard_card v1``)."""
-        return {t.label: t for t in (template_from_json(json.loads(r[0])) for r in
-                                     self.rows("SELECT json FROM templates ORDER BY name, version"))}
+        try:
+            return {t.label: t for t in (
+                template_from_json(checks.load_json(r[0], "a stored template", chars=checks.LIMITS["template_chars"],
+                                                    depth=checks.LIMITS["template_depth"]))
+                for r in self.rows("SELECT json FROM templates ORDER BY name, version"))}
+        except (ValueError, TemplateError) as exc:
+            raise BatchFileError(self.path, f"a stored template is damaged ({exc})") from None
 
     def mark_complete(self, file_ids: Iterable[int]) -> None:
         """Mark files as fully read (they are skipped by later ingests)."""
@@ -459,66 +492,6 @@ class Batch:
         if ids:
             with self.transaction() as conn:
                 conn.executemany("UPDATE files SET complete = 1 WHERE id = ?", [(i,) for i in ids])
-
-
-def _connect(path: Path, *, read_only: bool) -> sqlite3.Connection:
-    try:
-        if read_only:
-            conn = sqlite3.connect(f"{path.absolute().as_uri()}?mode=ro", uri=True,
-                                   isolation_level=None, check_same_thread=False)
-        else:
-            conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
-        conn.row_factory = sqlite3.Row
-        conn.execute("PRAGMA busy_timeout = 5000")
-        if not read_only:
-            conn.execute("PRAGMA journal_mode = WAL")
-            conn.execute("PRAGMA synchronous = FULL")
-        conn.execute("PRAGMA foreign_keys = ON")
-    except sqlite3.DatabaseError as exc:
-        raise BatchFileError(path, f"damaged or unreadable database ({exc})") from None
-    return conn
-
-
-def _check_ours(conn: sqlite3.Connection, path: Path, *, read_only: bool) -> None:
-    try:
-        app_id = conn.execute("PRAGMA application_id").fetchone()[0]
-        version = conn.execute("PRAGMA user_version").fetchone()[0]
-        tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
-        fmt = None
-        if "inkcount_meta" in tables:
-            row = conn.execute("SELECT value FROM inkcount_meta WHERE key = 'format'").fetchone()
-            fmt = row[0] if row else None
-    except sqlite3.DatabaseError as exc:
-        conn.close()
-        raise BatchFileError(path, f"the file is damaged ({exc})") from None
-    if app_id != APPLICATION_ID or fmt != FORMAT_NAME:
-        conn.close()
-        raise BatchFileError(path, "an SQLite database, but not an Inkcount batch file")
-    if version > schema.SCHEMA_VERSION:
-        conn.close()
-        raise BatchFileError(
-            path, f"made by a newer Inkcount (batch format {version}; this program reads up to "
-            f"{schema.SCHEMA_VERSION}); update Inkcount to open it"
-        )
-    if version < schema.SCHEMA_VERSION:
-        if read_only:
-            conn.close()
-            raise BatchFileError(path, f"batch format {version} needs upgrading: open it for writing once")
-        _migrate(conn, path)
-
-
-def _lock(path: Path) -> WriterLock:
-    try:
-        return WriterLock(path, since=timestamp())
-    except LockHeld as held:
-        raise BatchInUseError(path, f"it {_IN_USE}{held.holder}") from None
-
-
-def _migrate(conn: sqlite3.Connection, path: Path) -> None:
-    try:
-        schema.migrate(conn)
-    except schema.MigrationError as exc:
-        raise BatchFileError(path, str(exc)) from exc
 
 
 @contextmanager

@@ -128,8 +128,8 @@ class _Tally:
 
     def problem(self, problem: ScanProblem) -> None:
         self.table.add_problem(problem)
-        self.problems.append(str(problem))
-        self.bar.write(f"inkcount: {problem}", file=sys.stderr)
+        self.problems.append(problem.line())  # the same line as the window's (ScanProblem.line)
+        self.bar.write(f"inkcount: {problem.line()}", file=sys.stderr)
 
     def add(self, result: PageRead | ScanProblem) -> None:
         if isinstance(result, ScanProblem):
@@ -205,6 +205,8 @@ def run_read(args: argparse.Namespace) -> int:
                 return 2
             _apply_strictness(batch, args, model)
         threshold = _threshold(args, model, batch)
+        # count_pages is the guarded probe (headers only, never raises): a file it
+        # refuses is counted as nothing here and named as a problem when read.
         total = sum(n for n in (count_pages(f, max_pixels=args.max_pixels) for f in files) if isinstance(n, int))
         bar = tqdm(total=total, unit="page", desc="reading", disable=True if args.quiet else None, file=sys.stderr)
         stack.callback(bar.close)

@@ -54,8 +54,6 @@ from __future__ import annotations
 from typing import Any, Protocol
 
 import numpy as np
-from scipy.optimize import minimize_scalar
-from sklearn.linear_model import LogisticRegression
 
 from recognizer.digits.augment import low_resolution, mild_copies
 from recognizer.digits.model import NOT_A_DIGIT, DigitModel
@@ -105,6 +103,8 @@ def _fit_temperature(proba: np.ndarray, labels: np.ndarray, weights: np.ndarray 
         z = logp / np.exp(log_t)
         z = z - z.max(axis=1, keepdims=True)
         return float(w @ (np.log(np.exp(z).sum(axis=1)) - z[idx, labels]))
+
+    from scipy.optimize import minimize_scalar  # here, not at the top: the window starts without scipy
 
     res = minimize_scalar(nll, bounds=(np.log(0.05), np.log(20.0)), method="bounded")
     return float(np.exp(res.x)), float(res.fun)
@@ -228,6 +228,8 @@ def smoothed_residual_curve(
     fit = {"intercept": 0.0, "slope": 0.0, "n": int(conf.size), "n_wrong": int(wrong.sum())}
     feature = np.log(np.clip(1.0 - conf, 1e-12, None))
     if 0 < wrong.sum() < wrong.size:
+        from sklearn.linear_model import LogisticRegression  # imported only when calibrating
+
         lr = LogisticRegression(C=1e6, max_iter=1000).fit(feature[:, None], wrong)
         fit.update(intercept=float(lr.intercept_[0]), slope=float(lr.coef_[0, 0]))
         p = lr.predict_proba(feature[:, None])[:, 1]

@@ -18,7 +18,6 @@ from typing import Any
 
 import cv2
 import numpy as np
-from sklearn.metrics import confusion_matrix as _sklearn_confusion_matrix
 
 from recognizer.digits.marks import not_digit_marks
 from recognizer.digits.model import CLASSES, NOT_A_DIGIT, DigitModel
@@ -139,7 +138,9 @@ def confusion_matrix(true: np.ndarray, pred: np.ndarray, n_classes: int = len(CL
     """
     if len(true) == 0:  # scikit-learn refuses empty input
         return np.zeros((n_classes, n_classes), np.int64)
-    return _sklearn_confusion_matrix(true, pred, labels=range(n_classes)).astype(np.int64, copy=False)
+    from sklearn.metrics import confusion_matrix  # imported only when evaluating
+
+    return confusion_matrix(true, pred, labels=range(n_classes)).astype(np.int64, copy=False)
 
 
 def load_heldout() -> tuple[np.ndarray, np.ndarray]:

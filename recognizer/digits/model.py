@@ -37,6 +37,17 @@ Format version 3 adds ``member_preprocessing`` to the metadata: one entry of
 :data:`MEMBER_PREPROCESSING` per ensemble member (checked on load: a list of
 known names, as long as the ensemble).  Version 2 files have no such entry;
 every member of theirs reads deskewed cells, and they still load.
+
+A model file may come from anybody, so :func:`load_model` checks it against
+this layout before it allocates anything from it: the zip directory's size and
+entry count, every entry's name, compression and declared size, and every
+``.npy`` header (dtype, shape, bytes) are read first; the metadata's length
+and nesting depth are bounded before it is parsed (:func:`json_depth`). The
+limits (:data:`MODEL_LIMITS`) are far above the shipped model's (19 arrays,
+7.3 MB unpacked, 10 kB of metadata nested 4 deep). Every refusal is a
+:class:`ModelFileError` naming the file and the reason. (The module is longer than
+600 lines for these checks: they belong beside the format they check, and
+:func:`load_model` is the one door to it.)
 """
 
 from __future__ import annotations
@@ -44,6 +55,9 @@ from __future__ import annotations
 import datetime as _dt
 import hashlib
 import json
+import math
+import re
+import struct
 import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -77,6 +91,22 @@ _CURVE_ARRAYS = ("calib_threshold", "calib_residual")
 _CHUNK = 2048  # cells per forward pass of predict_proba
 _DIGIT_SETS = ("replay", "validation")
 _DIGIT_ARRAYS = tuple(f"{k}_{a}" for k in _DIGIT_SETS for a in ("images", "labels"))
+#: What a model file may hold at most, checked before anything is read from it.
+MODEL_LIMITS: dict[str, int] = {
+    "entries": 200,  # arrays in the archive (the shipped model: 19)
+    "directory_bytes": 1 << 20,  # the zip's central directory (46 bytes or more per entry)
+    "array_bytes": 256 << 20,  # all arrays unpacked together (the shipped model: 7.3 MB)
+    "metadata_chars": 1_000_000,  # JSON text of the metadata (the shipped model: 10,314)
+    "json_depth": 20,  # nesting of the metadata (the shipped model: 4)
+    "members": 16,  # ensemble members
+    "layers": 8,  # layers per member
+}
+_ARRAY_NAME = re.compile(r"(metadata|m\d{1,3}_[Wb]\d{1,3}|calib_threshold|calib_residual|"
+                         r"(?:replay|validation)_(?:images|labels))\.npy")
+_BRACKET_STEPS = np.zeros(256, np.int64)
+_BRACKET_STEPS[[ord("["), ord("{")]] = 1
+_BRACKET_STEPS[[ord("]"), ord("}")]] = -1
+_JSON_STRING = re.compile(r'"(?:[^"\\]|\\.)*+(?:"|\\?\Z)', re.S)
 
 
 class ModelFileError(Exception):
@@ -86,6 +116,18 @@ class ModelFileError(Exception):
         self.path = str(path)
         self.reason = reason
         super().__init__(f"cannot use model file {self.path!r}: {reason}")
+
+
+def json_depth(text: str) -> int:
+    """How deep the brackets of JSON text nest, strings left out: a linear scan to run before parsing.
+
+    ``json.loads`` recurses once per level and fails with ``RecursionError`` on
+    text nested a thousand deep; this tells such text apart cheaply.
+    """
+    if '"' in text:
+        text = _JSON_STRING.sub("", text)
+    steps = _BRACKET_STEPS[np.frombuffer(text.encode("ascii", "replace"), np.uint8)]
+    return int(np.cumsum(steps).max(initial=0))
 
 
 def timestamp() -> str:
@@ -350,6 +392,10 @@ def default_model_path() -> Path:
 def load_model(path: str | Path | None = None) -> DigitModel:
     """Read and check a model file.
 
+    The archive's directory and every array header are checked against the
+    format (and :data:`MODEL_LIMITS`) before any array is unpacked; nothing in
+    the file can run code (no pickle).
+
     Parameters
     ----------
     path : str or Path, optional
@@ -363,8 +409,11 @@ def load_model(path: str | Path | None = None) -> DigitModel:
     ------
     ModelFileError
         Missing file, not an npz archive, truncated or damaged, pickled/object
-        arrays inside, missing arrays, wrong shapes, newer format version,
-        bad JSON, or a checksum mismatch.
+        arrays inside, missing, unexpected or too many arrays, wrong shapes or
+        kinds, arrays larger than the limits, metadata too long, too deeply
+        nested or not JSON, newer format version, an empty or impossible
+        calibration curve, weights that are not finite numbers, or a checksum
+        mismatch.
     """
     path = Path(default_model_path() if path is None else path)
     if not path.is_file():
@@ -374,18 +423,14 @@ def load_model(path: str | Path | None = None) -> DigitModel:
     arrays = _read_arrays(path)
     meta = _read_metadata(path, arrays.pop("metadata", None))
     members = _read_members(path, arrays, meta)
-    for name in _CURVE_ARRAYS:
-        if name not in arrays:
-            raise ModelFileError(path, f"missing array {name!r}")
-        if arrays[name].ndim != 1 or arrays[name].shape != arrays[_CURVE_ARRAYS[0]].shape:
-            raise ModelFileError(path, f"wrong shape {arrays[name].shape} for {name!r}")
+    _check_curve(path, arrays)
     for kind in _DIGIT_SETS:
         _check_digit_set(path, arrays, kind)
     if _digest(arrays) != meta.get("weights_sha256"):
         raise ModelFileError(path, "checksum mismatch: the weights were altered or damaged")
     try:
         temperature = float(meta["temperature"])
-    except (KeyError, TypeError, ValueError):
+    except (KeyError, TypeError, ValueError, OverflowError):
         raise ModelFileError(path, "metadata has no valid 'temperature'") from None
     if not 0 < temperature < np.inf:
         raise ModelFileError(path, f"temperature must be a finite number > 0, got {temperature}")
@@ -402,6 +447,24 @@ def load_model(path: str | Path | None = None) -> DigitModel:
     )
 
 
+def _check_curve(path: Path, arrays: dict[str, np.ndarray]) -> None:
+    """The calibration curve: one or more points, thresholds ascending in 0..1, residual errors in 0..1."""
+    for name in _CURVE_ARRAYS:
+        if name not in arrays:
+            raise ModelFileError(path, f"missing array {name!r}")
+        if arrays[name].ndim != 1 or arrays[name].shape != arrays[_CURVE_ARRAYS[0]].shape:
+            raise ModelFileError(path, f"wrong shape {arrays[name].shape} for {name!r}")
+    threshold, residual = (arrays[name].astype(np.float64) for name in _CURVE_ARRAYS)
+    if threshold.size == 0:
+        raise ModelFileError(path, "the calibration curve is empty: the model cannot say which digits to check")
+    if not (np.isfinite(threshold).all() and np.isfinite(residual).all()):
+        raise ModelFileError(path, "the calibration curve holds values that are not numbers")
+    if threshold.min() < 0 or threshold.max() > 1 or np.any(np.diff(threshold) < 0):
+        raise ModelFileError(path, "the calibration thresholds must rise from 0 to 1")
+    if residual.min() < 0 or residual.max() > 1:
+        raise ModelFileError(path, "the calibration's residual errors must lie between 0 and 1")
+
+
 def _read_member_preprocessing(path: Path, meta: dict[str, Any], n_members: int) -> tuple[str, ...]:
     """``member_preprocessing`` of a format-3 file, checked; deskew for every member of a format-2 file."""
     if meta["format_version"] < 3:
@@ -409,10 +472,11 @@ def _read_member_preprocessing(path: Path, meta: dict[str, Any], n_members: int)
     entry = meta.get("member_preprocessing")
     if not isinstance(entry, list) or len(entry) != n_members:
         raise ModelFileError(path, f"'member_preprocessing' must list one entry per member ({n_members}), "
-                             f"got {entry!r}")
+                             f"got {_short(entry)}")
     for kind in entry:
         if not isinstance(kind, str) or kind not in MEMBER_PREPROCESSING:
-            raise ModelFileError(path, f"unknown member preprocessing {kind!r}; known: {sorted(MEMBER_PREPROCESSING)}")
+            raise ModelFileError(path, f"unknown member preprocessing {_short(kind)}; "
+                                 f"known: {sorted(MEMBER_PREPROCESSING)}")
     return tuple(entry)
 
 
@@ -431,15 +495,115 @@ def _check_digit_set(path: Path, arrays: dict[str, np.ndarray], kind: str) -> No
         raise ModelFileError(path, f"{names[1]!r} must be {len(images)} uint8 digits 0..9")
 
 
-def _read_arrays(path: Path) -> dict[str, np.ndarray]:
+def _short(value: Any, limit: int = 60) -> str:
+    """``repr(value)``, cut to ``limit`` characters for a message."""
+    text = repr(value)
+    return text if len(text) <= limit else text[:limit] + "..."
+
+
+def _few(names: list[str], shown: int = 5) -> str:
+    """Up to ``shown`` names for a message, and how many more there are."""
+    out = ", ".join(repr(n) for n in names[:shown])
+    return out + (f" and {len(names) - shown} more" if len(names) > shown else "")
+
+
+def _check_directory(path: Path) -> None:
+    """Bound the zip's central directory before :mod:`zipfile` reads it all into memory.
+
+    The end record (the last 22 bytes, or up to 64 kB earlier behind a
+    comment) gives the number of entries and the directory's size; a zip64
+    archive (more than 65,535 entries or 4 GB) is never a model file.
+    """
+    with open(path, "rb") as fh:
+        fh.seek(0, 2)
+        size = fh.tell()
+        fh.seek(max(0, size - 22 - 0xFFFF))
+        tail = fh.read()
+    at = len(tail) - 22 if tail[-22:-18] == b"PK\x05\x06" else tail.rfind(b"PK\x05\x06")
+    if at < 0 or len(tail) - at < 22:
+        raise ModelFileError(path, "not an .npz archive, or truncated (no zip directory found)")
+    entries, directory = struct.unpack_from("<HI", tail, at + 10)
+    if b"PK\x06\x07" in tail[max(0, at - 20):at] or entries == 0xFFFF or directory == 0xFFFFFFFF:
+        raise ModelFileError(path, "a zip64 archive: far more or larger arrays than a model file holds")
+    if entries > MODEL_LIMITS["entries"]:
+        raise ModelFileError(path, f"holds {entries} arrays; a model file holds at most {MODEL_LIMITS['entries']}")
+    if directory > MODEL_LIMITS["directory_bytes"]:
+        raise ModelFileError(path, f"its zip directory is {directory} bytes long, far more than a model file's")
+
+
+def _check_entry(path: Path, zf: zipfile.ZipFile, info: zipfile.ZipInfo) -> None:
+    """One archive entry: an uncompressed or deflated ``.npy`` whose header declares an allowed
+    dtype and a shape that fills exactly the entry's declared size."""
+    name = info.filename[:-4]
+    if info.flag_bits & 0x1:
+        raise ModelFileError(path, f"array {name!r} is encrypted")
+    if info.compress_type not in (zipfile.ZIP_STORED, zipfile.ZIP_DEFLATED):
+        raise ModelFileError(path, f"array {name!r} is packed with an unknown method")
     try:
-        with np.load(path, allow_pickle=False) as npz:
-            return {name: npz[name] for name in npz.files}
-    except ValueError as exc:
-        if "pickle" in str(exc).lower():
-            raise ModelFileError(path, "contains a pickled (object) array; refused for safety") from None
-        raise ModelFileError(path, f"damaged or truncated archive ({exc})") from None
-    except (OSError, EOFError, zipfile.BadZipFile, KeyError) as exc:
+        with zf.open(info) as fh:
+            version = np.lib.format.read_magic(fh)
+            if version == (1, 0):
+                shape, _, dtype = np.lib.format.read_array_header_1_0(fh)
+            elif version == (2, 0):
+                shape, _, dtype = np.lib.format.read_array_header_2_0(fh)
+            else:
+                raise ValueError(f"unknown .npy version {version}")
+            offset = fh.tell()
+    except (ValueError, OSError, EOFError, zipfile.BadZipFile) as exc:
+        raise ModelFileError(path, f"array {name!r} has a damaged header ({exc})") from None
+    if dtype.hasobject:
+        raise ModelFileError(path, "contains a pickled (object) array; refused for safety")
+    if name == "metadata":
+        allowed = dtype.kind == "U" and shape == ()
+        what = "a JSON text entry"
+    elif name.endswith(("_images", "_labels")):
+        allowed = dtype == np.uint8
+        what = "uint8"
+    else:
+        allowed = dtype.kind == "f" and dtype.itemsize in (2, 4, 8)
+        what = "floating-point numbers"
+    if not allowed or dtype.names is not None or dtype.subdtype is not None:
+        raise ModelFileError(path, f"array {name!r} is {dtype} {shape}; it must be {what}")
+    if len(shape) > 3 or any(not isinstance(n, int) or n < 0 for n in shape):
+        raise ModelFileError(path, f"array {name!r} declares an impossible shape {_short(shape)}")
+    declared = math.prod(shape) * dtype.itemsize
+    if declared != info.file_size - offset:
+        raise ModelFileError(path, f"array {name!r} declares {declared} bytes of data ({shape}, {dtype}) "
+                             f"but its entry holds {info.file_size - offset}")
+    if name == "metadata" and dtype.itemsize // 4 > MODEL_LIMITS["metadata_chars"]:
+        raise ModelFileError(path, f"its metadata is {dtype.itemsize // 4} characters long; "
+                             f"at most {MODEL_LIMITS['metadata_chars']} are read")
+
+
+def _read_arrays(path: Path) -> dict[str, np.ndarray]:
+    """Every array of the archive, each checked (:func:`_check_entry`) before any is unpacked."""
+    _check_directory(path)
+    try:
+        with zipfile.ZipFile(path) as zf:
+            infos = zf.infolist()
+            names = [info.filename for info in infos]
+            if len(infos) > MODEL_LIMITS["entries"]:
+                raise ModelFileError(path, f"holds {len(infos)} arrays; a model file holds at most "
+                                     f"{MODEL_LIMITS['entries']}")
+            if len(set(names)) != len(names):
+                raise ModelFileError(path, "an array name appears twice in the archive")
+            unknown = [n for n in names if not _ARRAY_NAME.fullmatch(n)]
+            if unknown:
+                raise ModelFileError(path, f"unexpected arrays {_few(unknown)}")
+            total = sum(info.file_size for info in infos)
+            if total > MODEL_LIMITS["array_bytes"]:
+                raise ModelFileError(path, f"its arrays would take {total / 1e6:,.0f} MB unpacked; a model file "
+                                     f"may hold at most {MODEL_LIMITS['array_bytes'] / 1e6:,.0f} MB")
+            for info in infos:
+                _check_entry(path, zf, info)
+            arrays = {}
+            for info in infos:
+                with zf.open(info) as fh:
+                    arrays[info.filename[:-4]] = np.lib.format.read_array(fh, allow_pickle=False)
+            return arrays
+    except ModelFileError:
+        raise
+    except (ValueError, OSError, EOFError, zipfile.BadZipFile, RuntimeError, NotImplementedError) as exc:
         raise ModelFileError(path, f"damaged or truncated archive ({exc})") from None
 
 
@@ -448,9 +612,12 @@ def _read_metadata(path: Path, entry: np.ndarray | None) -> dict[str, Any]:
         raise ModelFileError(path, "missing array 'metadata'")
     if entry.dtype.kind != "U" or entry.ndim != 0:
         raise ModelFileError(path, "'metadata' must be a JSON text entry")
+    text = str(entry)
+    if json_depth(text) > MODEL_LIMITS["json_depth"]:
+        raise ModelFileError(path, f"its metadata nests deeper than {MODEL_LIMITS['json_depth']} levels")
     try:
-        meta = json.loads(str(entry))
-    except json.JSONDecodeError as exc:
+        meta = json.loads(text)
+    except (ValueError, RecursionError) as exc:
         raise ModelFileError(path, f"metadata is not valid JSON ({exc})") from None
     if not isinstance(meta, dict) or meta.get("format") != FORMAT_NAME:
         raise ModelFileError(path, f"not an {FORMAT_NAME} file")
@@ -461,11 +628,15 @@ def _read_metadata(path: Path, entry: np.ndarray | None) -> dict[str, Any]:
         raise ModelFileError(
             path, f"format version {version} is newer than this program reads ({FORMAT_VERSION})"
         )
-    if list(meta.get("classes", [])) != list(CLASSES):
-        raise ModelFileError(path, f"unexpected classes {meta.get('classes')!r}")
+    if meta.get("classes") != list(CLASSES):
+        raise ModelFileError(path, f"unexpected classes {_short(meta.get('classes'))}")
     if meta.get("input_shape") != [CELL_SIZE, CELL_SIZE]:
-        raise ModelFileError(path, f"unexpected input shape {meta.get('input_shape')!r}")
+        raise ModelFileError(path, f"unexpected input shape {_short(meta.get('input_shape'))}")
     return meta
+
+
+def _whole(value: Any) -> bool:
+    return isinstance(value, int) and not isinstance(value, bool) and value > 0
 
 
 def _read_members(
@@ -474,13 +645,18 @@ def _read_members(
     layout = meta.get("ensemble")
     if not isinstance(layout, list) or not layout:
         raise ModelFileError(path, "metadata has no ensemble layout")
+    if len(layout) > MODEL_LIMITS["members"]:
+        raise ModelFileError(path, f"{len(layout)} ensemble members; at most {MODEL_LIMITS['members']} are read")
     members = []
     for i, shapes in enumerate(layout):
+        if not isinstance(shapes, list) or not 1 <= len(shapes) <= MODEL_LIMITS["layers"]:
+            raise ModelFileError(path, f"member {i} must list 1 to {MODEL_LIMITS['layers']} layers")
         expected_in = CELL_SIZE * CELL_SIZE
         layers = []
         for j, shape in enumerate(shapes):
-            if not (isinstance(shape, list) and len(shape) == 2 and shape[0] == expected_in):
-                raise ModelFileError(path, f"inconsistent layout for member {i} layer {j}: {shape!r}")
+            if not (isinstance(shape, list) and len(shape) == 2 and all(map(_whole, shape))
+                    and shape[0] == expected_in):
+                raise ModelFileError(path, f"inconsistent layout for member {i} layer {j}: {_short(shape)}")
             w_name, b_name = f"m{i}_W{j}", f"m{i}_b{j}"
             for name, want in ((w_name, tuple(shape)), (b_name, (shape[1],))):
                 if name not in arrays:
@@ -490,6 +666,8 @@ def _read_members(
                     raise ModelFileError(path, f"wrong shape {arr.shape} for {name!r}, expected {want}")
                 if arr.dtype.kind != "f":
                     raise ModelFileError(path, f"array {name!r} has dtype {arr.dtype}, expected float")
+                if not np.isfinite(arr).all():
+                    raise ModelFileError(path, f"array {name!r} holds values that are not numbers")
             layers.append((arrays[w_name], arrays[b_name]))
             expected_in = shape[1]
         if expected_in != len(CLASSES):
@@ -499,5 +677,5 @@ def _read_members(
         f"m{i}_{k}{j}" for i, s in enumerate(layout) for j in range(len(s)) for k in "Wb"
     }
     if extra:
-        raise ModelFileError(path, f"unexpected arrays {sorted(extra)!r}")
+        raise ModelFileError(path, f"unexpected arrays {_few(sorted(extra))}")
     return members

@@ -55,17 +55,14 @@ pull towards zero.
 from __future__ import annotations
 
 import datetime as _dt
+import functools
 import platform
 import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import asdict, dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import sklearn
-from sklearn.exceptions import ConvergenceWarning
-from sklearn.neural_network import MLPClassifier
-from threadpoolctl import threadpool_limits
 
 from recognizer.digits.augment import augment
 from recognizer.digits.calibration import calibrate, with_offset
@@ -73,7 +70,16 @@ from recognizer.digits.marks import not_digit_marks
 from recognizer.digits.model import NOT_A_DIGIT, DigitModel, member_features, timestamp
 from recognizer.digits.training import TrainSettings, export_member
 
+# scikit-learn and threadpoolctl are imported inside the functions that train: the window imports
+# this module for its settings, and must not pay seconds of scikit-learn import to start.
+if TYPE_CHECKING:
+    from sklearn.neural_network import MLPClassifier
+
 Progress = Callable[[str], None]
+
+
+class RetrainStopped(Exception):
+    """:func:`retrain` was asked to stop (its ``should_stop`` said yes); nothing was made."""
 
 #: Fewest labelled samples :func:`retrain` accepts (one to learn from, one held back).
 MIN_SAMPLES = 2
@@ -187,10 +193,50 @@ def _mix(new: np.ndarray, new_labels: np.ndarray, replay: np.ndarray, replay_lab
     return x[order], y[order]
 
 
+def _sklearn_version() -> str:
+    import sklearn
+
+    return sklearn.__version__
+
+
+def _stop_if(should_stop: Callable[[], bool] | None) -> None:
+    if should_stop is not None and should_stop():
+        raise RetrainStopped("retraining stopped")
+
+
+@functools.cache
+def _stoppable_classifier() -> type:
+    """``MLPClassifier`` that asks its ``should_stop`` before every mini-batch, and raises :class:`RetrainStopped`.
+
+    So that closing the window during a round of learning does not wait for a
+    whole member's fine-tuning (tens of seconds on two cores). The question is
+    asked in scikit-learn's ``_backprop``, a private method called once per
+    mini-batch; were it renamed in another scikit-learn, it would simply never
+    be asked and fine-tuning would run to its end as before. The weights
+    learned are the same as a plain ``MLPClassifier``'s: only the question is added.
+    """
+    from sklearn.neural_network import MLPClassifier
+
+    class StoppableClassifier(MLPClassifier):
+        should_stop: Callable[[], bool] | None = None
+
+        def _backprop(self, *args, **kwargs):
+            if self.should_stop is not None and self.should_stop():
+                raise RetrainStopped("fine-tuning stopped")
+            return super()._backprop(*args, **kwargs)
+
+    return StoppableClassifier
+
+
 def _fine_tune(layers: list[tuple[np.ndarray, np.ndarray]], x: np.ndarray, y: np.ndarray,
-               settings: RetrainSettings, seed: int) -> MLPClassifier:
-    """An ``MLPClassifier`` started from ``layers`` and trained ``settings.epochs`` epochs on (x, y)."""
-    clf = MLPClassifier(
+               settings: RetrainSettings, seed: int, should_stop: Callable[[], bool] | None = None) -> MLPClassifier:
+    """An ``MLPClassifier`` started from ``layers`` and trained ``settings.epochs`` epochs on (x, y).
+
+    Raises :class:`RetrainStopped` as soon as ``should_stop()`` says yes (asked before every mini-batch).
+    """
+    from sklearn.exceptions import ConvergenceWarning
+
+    clf = _stoppable_classifier()(
         hidden_layer_sizes=tuple(w.shape[1] for w, _ in layers[:-1]),
         activation="relu",
         solver="adam",
@@ -203,6 +249,7 @@ def _fine_tune(layers: list[tuple[np.ndarray, np.ndarray]], x: np.ndarray, y: np
         random_state=seed,
         warm_start=True,
     )
+    clf.should_stop = should_stop
     seed_rows = np.array([np.nonzero(y == c)[0][0] for c in range(NOT_A_DIGIT + 1)])
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ConvergenceWarning)
@@ -230,6 +277,7 @@ def retrain(
     settings: RetrainSettings = RetrainSettings(),
     batches: Sequence[dict[str, Any]] = (),
     progress: Progress | None = None,
+    should_stop: Callable[[], bool] | None = None,
 ) -> RetrainResult:
     """Fine-tune ``parent`` on labelled samples from batches (see the module docstring).
 
@@ -245,6 +293,9 @@ def retrain(
     batches : sequence of dict
         Provenance of the samples (e.g. file name and sample count), stored in the metadata.
     progress : callable(str), optional
+    should_stop : callable() -> bool, optional
+        Asked before every mini-batch of fine-tuning and between steps; when
+        it says yes, :class:`RetrainStopped` is raised (nothing is made).
 
     Returns
     -------
@@ -254,6 +305,8 @@ def retrain(
     ------
     ValueError
         Too few samples, or a parent without replay/validation digits.
+    RetrainStopped
+        ``should_stop`` said yes.
     """
     say = progress or (lambda _msg: None)
     if parent.replay_images is None or parent.validation_images is None:
@@ -271,12 +324,14 @@ def retrain(
     replay_labels = parent.replay_labels.astype(np.int64)
     say(f"{len(tr)} new samples to learn from, {len(ck)} held back; {len(replay_labels)} replay digits")
     members = []
+    from threadpoolctl import threadpool_limits
+
     with threadpool_limits(limits=settings.threads):
         for k, (layers, kind, ss) in enumerate(zip(with_offset(parent.members, -offset),
                                                    parent.member_preprocessing, member_ss)):
             rng = np.random.default_rng(ss)
             x, y = _mix(samples.cells[tr], samples.labels[tr], replay, replay_labels, settings, rng, kind)
-            clf = _fine_tune(layers, x, y, settings, seed=int(rng.integers(2**31 - 1)))
+            clf = _fine_tune(layers, x, y, settings, seed=int(rng.integers(2**31 - 1)), should_stop=should_stop)
             members.append(export_member(clf, str(np.asarray(layers[0][0]).dtype)))
             say(f"member {k + 1}/{len(parent.members)}: {len(y)} samples, loss {clf.loss_:.4f}")
     model = DigitModel(members=members, replay_images=parent.replay_images, replay_labels=parent.replay_labels,
@@ -288,8 +343,10 @@ def retrain(
     calib_cells = np.concatenate([val, samples.cells[ck][check_digits]])
     calib_labels = np.concatenate([val_labels, samples.labels[ck][check_digits]])
     crng = np.random.default_rng(calib_ss)
+    _stop_if(should_stop)
     marks = not_digit_marks(base_settings.validation_junk, rng=crng, digits=calib_cells)
     calibration = calibrate(model, calib_cells, calib_labels, marks=marks, settings=base_settings, rng=crng)
+    _stop_if(should_stop)
     figures = _compare(parent, model, samples, tr, ck, heldout)
     reasons = []
     if figures["after"]["new_samples"] < figures["before"]["new_samples"]:
@@ -317,7 +374,7 @@ def retrain(
         "validation": {"accuracy": calibration["accuracy"], "n": int(len(calib_labels))},
         "calibration": calibration,
         "library_versions": {"python": platform.python_version(), "numpy": np.__version__,
-                             "scikit-learn": sklearn.__version__},
+                             "scikit-learn": _sklearn_version()},
     }
     return RetrainResult(model=model, accepted=not reasons, reasons=reasons, figures=figures)
 

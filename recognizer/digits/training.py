@@ -67,22 +67,24 @@ from __future__ import annotations
 import datetime as _dt
 import hashlib
 import platform
+from importlib.metadata import version
 from collections.abc import Callable, Mapping
 from dataclasses import asdict, dataclass, field, fields, replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import cv2
 import numpy as np
-import scipy
-import sklearn
-from sklearn.neural_network import MLPClassifier
-from threadpoolctl import threadpool_limits
 
 from recognizer.digits.augment import fresh_copies
 from recognizer.digits.calibration import calibrate
 from recognizer.digits.handwriting import CellCutter, office_digits
 from recognizer.digits.marks import not_digit_marks
 from recognizer.digits.model import MEMBER_PREPROCESSING, MNIST_CREDIT, NOT_A_DIGIT, DigitModel, member_features, timestamp
+
+# scikit-learn, scipy and threadpoolctl are imported inside the functions that train (the window
+# imports this module through retrain's settings and must start without them).
+if TYPE_CHECKING:
+    from sklearn.neural_network import MLPClassifier
 
 Progress = Callable[[str], None]
 
@@ -337,6 +339,8 @@ def train_member(
     -------
     The fitted ``MLPClassifier`` (classes 0..10).
     """
+    from sklearn.neural_network import MLPClassifier
+
     clf = MLPClassifier(
         hidden_layer_sizes=member.hidden,
         activation="relu",
@@ -429,6 +433,8 @@ def train_model(
             settings.office_pool, rng=np.random.default_rng(office_ss), cut=cut, touch=settings.office_touch)
     say(f"{len(xt)} training and {len(xv)} validation digits, {len(data.office_labels)} stroke-model digits "
         f"({_elapsed(start):.0f} s); {n_members} member(s)")
+    from threadpoolctl import threadpool_limits
+
     members = []
     with threadpool_limits(limits=settings.threads):
         for k, (member, ss) in enumerate(zip(settings.members, member_ss)):
@@ -483,8 +489,8 @@ def train_model(
         "library_versions": {
             "python": platform.python_version(),
             "numpy": np.__version__,
-            "scikit-learn": sklearn.__version__,
-            "scipy": scipy.__version__,
+            "scikit-learn": version("scikit-learn"),
+            "scipy": version("scipy"),
             "opencv": cv2.__version__,
         },
     }

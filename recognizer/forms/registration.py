@@ -14,7 +14,11 @@ A page is registered in four steps, all on the pages' ink seen at
    orientation, so a page scanned upside down matches at about 180 degrees
    and is turned like any other rotation. The fit is *plausible* when at
    least :data:`MIN_INLIERS` matches agree, the scale lies in 0.85-1.15 and
-   the rotation within 12 degrees of upright or of upside down.
+   the rotation within 12 degrees of upright or of upside down.  When the
+   page's dpi is a guess (a phone photo flattened to the paper size it
+   matches -- A4 and A5 have the same shape -- or a file that states no
+   resolution), any scale in 0.45-2.2 is taken and the later steps keep
+   0.85-1.15 around it.
 3. *Refinement*: the page is warped onto the reference by that fit, and the
    enhanced correlation coefficient method (ECC; Evangelidis & Psarakis,
    2008) aligns the smoothed masks of its straight printed lines (see 4) to
@@ -80,6 +84,11 @@ _TOLERANCE_PX = 1        # line pixels agree within this many pixels (0.25 mm at
 _RATIO = 0.8             # Lowe's ratio test
 _RANSAC_PX = 3.0
 _SCALE_RANGE = (0.85, 1.15)
+# When the page's dpi is a guess (a phone photo flattened to the paper size it matches, or a
+# file without a resolution), the paper may be another size of the same shape (A4 and A5 differ
+# by sqrt(2)); the feature fit then takes any scale in this range and the refinement keeps the
+# ordinary range around the scale found.
+_GUESSED_SCALE_RANGE = (0.45, 2.2)
 _MAX_TILT_DEG = 12.0
 _MAX_SHEAR = 0.03
 _REFINE_SLACK = 0.05     # a refinement is kept unless it scores this much worse
@@ -194,7 +203,7 @@ class Registrar:
         self._lines_near = cv2.dilate(self._lines, _tolerance_kernel())
         self._field_lines = self._lines & _box_walls(template, reference.image.shape)
 
-    def register(self, image: np.ndarray, *, dpi: float) -> Registration:
+    def register(self, image: np.ndarray, *, dpi: float, dpi_known: bool = True) -> Registration:
         """Register a page; never raises on odd page content.
 
         Parameters
@@ -203,6 +212,10 @@ class Registrar:
             The page, 0 = ink.
         dpi : float
             Its resolution (150..600 expected).
+        dpi_known : bool
+            False when ``dpi`` is a guess (from the page's pixel size, or a
+            phone photo's paper size): the scale is then found, not checked
+            against 0.85-1.15 (see ``_GUESSED_SCALE_RANGE``).
 
         Returns
         -------
@@ -211,12 +224,12 @@ class Registrar:
             the score is below ``min_score`` (the score is kept for reporting).
         """
         ink = page_ink(image, dpi=dpi, features_dpi=self.reference.features_dpi)
-        work = self._features_fit(ink)
+        work = self._features_fit(ink, _SCALE_RANGE if dpi_known else _GUESSED_SCALE_RANGE)
         if isinstance(work, str):
             return Registration(problem=work)
         work, inliers = work
         score = self._score(ink, work)
-        refined = self._refine(ink, work)
+        refined = self._refine(ink, work, 1.0 if dpi_known else _rotation_scale(work)[1])
         refined_score = self._score(ink, refined)
         if refined_score >= score - _REFINE_SLACK:
             work, score = refined, refined_score
@@ -228,7 +241,7 @@ class Registrar:
 
     # steps, all on features_dpi images with pixel-index coordinates
 
-    def _features_fit(self, ink: np.ndarray) -> tuple[np.ndarray, int] | str:
+    def _features_fit(self, ink: np.ndarray, scale_range: tuple[float, float]) -> tuple[np.ndarray, int] | str:
         keypoints, descriptors = self._orb.detectAndCompute(ink, None)
         if descriptors is None or self._descriptors is None or len(keypoints) < MIN_INLIERS:
             return "the page does not match this template (too few features on the page)"
@@ -246,12 +259,12 @@ class Registrar:
             return "the page does not match this template (no consistent feature matches)"
         rotation, scale = _rotation_scale(matrix)
         tilt = min(abs(rotation), 180 - abs(rotation))
-        if not _SCALE_RANGE[0] <= scale <= _SCALE_RANGE[1] or tilt > _MAX_TILT_DEG:
+        if not scale_range[0] <= scale <= scale_range[1] or tilt > _MAX_TILT_DEG:
             return (f"the page does not match this template (implausible alignment: "
                     f"rotation {rotation:.1f} degrees, scale {scale:.2f})")
         return matrix, inliers
 
-    def _refine(self, ink: np.ndarray, matrix: np.ndarray) -> np.ndarray:
+    def _refine(self, ink: np.ndarray, matrix: np.ndarray, scale: float = 1.0) -> np.ndarray:
         lines = _line_mask(self._on_reference(ink, matrix), self.reference.features_dpi)
         warp = np.eye(2, 3, dtype=np.float32)
         criteria = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 40, 1e-4)
@@ -261,7 +274,7 @@ class Registrar:
         except cv2.error:
             return matrix
         refined = (_h(matrix) @ _h(warp.astype(np.float64)))[:2]
-        return refined if _plausible_affine(refined, matrix) else matrix
+        return refined if _plausible_affine(refined, matrix, scale) else matrix
 
     def _on_reference(self, ink: np.ndarray, matrix: np.ndarray) -> np.ndarray:
         """The page's ink warped onto the reference by ``matrix`` (reference -> page, index coordinates)."""
@@ -344,13 +357,13 @@ def _rotation_scale(matrix: np.ndarray) -> tuple[float, float]:
     return -math.degrees(math.atan2(a[1, 0] - a[0, 1], a[0, 0] + a[1, 1])), scale
 
 
-def _plausible_affine(refined: np.ndarray, start: np.ndarray) -> bool:
-    """A refinement keeps the scale range, little shear and stays near where it started."""
+def _plausible_affine(refined: np.ndarray, start: np.ndarray, scale: float = 1.0) -> bool:
+    """A refinement keeps the scale range (around ``scale``), little shear and stays near where it started."""
     a = refined[:, :2]
     sx, sy = np.linalg.norm(a[:, 0]), np.linalg.norm(a[:, 1])
     shear = abs(float(a[:, 0] @ a[:, 1])) / (sx * sy)
     moved = np.abs(refined - start)[:, 2].max()
-    lo, hi = _SCALE_RANGE
+    lo, hi = _SCALE_RANGE[0] * scale, _SCALE_RANGE[1] * scale
     return lo <= sx <= hi and lo <= sy <= hi and shear <= _MAX_SHEAR and moved < 10.0
 
 
@@ -382,8 +395,8 @@ class TemplateMatch:
         return self.problem is None
 
 
-def match_templates(image: np.ndarray, *, dpi: float,
-                    registrars: Sequence[Registrar]) -> TemplateMatch:
+def match_templates(image: np.ndarray, *, dpi: float, registrars: Sequence[Registrar],
+                    dpi_known: bool = True) -> TemplateMatch:
     """Register a page to every template and align it to the best one.
 
     Parameters
@@ -394,6 +407,8 @@ def match_templates(image: np.ndarray, *, dpi: float,
         Its resolution.
     registrars : sequence of Registrar
         One per template of the batch.
+    dpi_known : bool
+        False when ``dpi`` is a guess (see :meth:`Registrar.register`).
 
     Returns
     -------
@@ -402,7 +417,7 @@ def match_templates(image: np.ndarray, *, dpi: float,
     if not registrars:
         raise ValueError("no templates to match")
     gray = as_gray_page(image)
-    tries = [(r.template, r.register(gray, dpi=dpi)) for r in registrars]
+    tries = [(r.template, r.register(gray, dpi=dpi, dpi_known=dpi_known)) for r in registrars]
     scores = {t.label: reg.score for t, reg in tries}
     template, best = max(tries, key=lambda tr: (bool(tr[1]), tr[1].score))
     if not best:

@@ -35,6 +35,7 @@ from __future__ import annotations
 import datetime as dt
 import math
 import re
+from collections import Counter
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -44,6 +45,8 @@ from recognizer.forms.checkdigits import CHECK_SYSTEMS
 
 __all__ = [
     "DATE_ORDERS",
+    "DPI_RANGE",
+    "MAX_PAGE_PIXELS",
     "FIELD_TYPES",
     "RESERVED_NAMES",
     "Reference",
@@ -51,6 +54,7 @@ __all__ = [
     "Template",
     "TemplateError",
     "TemplateField",
+    "check_reference_size",
     "comparable_bound",
     "date_parts",
     "iso_date",
@@ -62,6 +66,11 @@ DATE_ORDERS = ("DDMMYYYY", "MMDDYYYY", "YYYYMMDD", "DDMMYY", "MMDDYY", "YYMMDD")
 #: Column names of the values CSV that a field may not take.
 RESERVED_NAMES = frozenset({"file", "page", "to_check", "problem", "template"})
 _NAME = re.compile(r"[A-Za-z][A-Za-z0-9_]*\Z")
+#: Resolutions a reference page and its features image may have (dpi).
+DPI_RANGE = (50.0, 2400.0)
+FEATURES_DPI_RANGE = (10.0, 600.0)
+#: The largest reference page, in pixels (an A3 page at 600 dpi is 70 million).
+MAX_PAGE_PIXELS = 120_000_000
 
 
 class TemplateError(ValueError):
@@ -215,13 +224,11 @@ def _check_template(t: Template) -> None:
         raise TemplateError(f"version must be a whole number from 1, not {t.version!r}")
     if not t.fields:
         raise TemplateError("the template has no fields")
-    names = [f.name for f in t.fields]
-    seen = {n for n in names if names.count(n) > 1}
+    seen = {name for name, n in Counter(f.name for f in t.fields).items() if n > 1}
     if seen:
         raise TemplateError(f"field names used twice: {', '.join(sorted(seen))}")
     r = t.reference
-    if r.dpi <= 0 or r.features_dpi <= 0 or r.width_px < 1 or r.height_px < 1:
-        raise TemplateError("the reference needs a positive dpi and page size")
+    check_reference_size(r.dpi, r.width_px, r.height_px, r.features_dpi)
     if r.image.ndim != 2 or r.image.dtype != np.uint8:
         raise TemplateError("the reference image must be a grey 8-bit image")
     for f in t.fields:
@@ -240,6 +247,18 @@ def _check_template(t: Template) -> None:
                 raise TemplateError(f"sum rule for {rule.total!r}: field {name!r} is not a number (integer or decimal)")
         if len(set(involved)) != len(involved):
             raise TemplateError(f"sum rule for {rule.total!r}: a field is named twice")
+
+
+def check_reference_size(dpi: float, width_px: int, height_px: int, features_dpi: float) -> None:
+    """A reference page's resolution and size are within reason (:data:`DPI_RANGE`,
+    :data:`FEATURES_DPI_RANGE`, :data:`MAX_PAGE_PIXELS`); :class:`TemplateError` if not."""
+    if not (DPI_RANGE[0] <= dpi <= DPI_RANGE[1] and FEATURES_DPI_RANGE[0] <= features_dpi <= FEATURES_DPI_RANGE[1]):
+        raise TemplateError(f"the reference's dpi ({dpi:g}, features {features_dpi:g}) must lie between "
+                            f"{DPI_RANGE[0]:g} and {DPI_RANGE[1]:g} (features: {FEATURES_DPI_RANGE[0]:g} to "
+                            f"{FEATURES_DPI_RANGE[1]:g})")
+    if width_px < 1 or height_px < 1 or width_px * height_px > MAX_PAGE_PIXELS:
+        raise TemplateError(f"the reference page of {width_px} x {height_px} pixels is not a page size "
+                            f"(at most {MAX_PAGE_PIXELS:,} pixels)")
 
 
 def date_parts(order: str) -> list[str] | None:

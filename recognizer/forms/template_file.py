@@ -33,6 +33,13 @@ A template is a UTF-8 JSON file (suffix ``.json``) of this shape::
     }
 
 Keys other than these are refused, so a misspelt rule does not go unnoticed.
+A template file may come from anybody, so it is checked against this shape
+before anything is built from it: the file's size, the JSON's nesting depth
+(before it is parsed), whole numbers of at most 15 digits and no ``NaN`` or
+``Infinity``, the numbers of fields, boxes and rules (:data:`LIMITS`), the
+dpi and page size (:data:`recognizer.forms.template.DPI_RANGE`,
+:data:`~recognizer.forms.template.MAX_PAGE_PIXELS`), and the reference
+image's size from its PNG header before it is decoded.
 Field names are letters, digits and underscores, start with a letter and may
 not be one of the CSV's own columns
 (:data:`~recognizer.forms.template.RESERVED_NAMES`). A file of a newer
@@ -47,20 +54,26 @@ from __future__ import annotations
 
 import base64
 import json
+import math
 import os
 import re
+import struct
 from pathlib import Path
 from typing import Any
 
 import cv2
 import numpy as np
 
+from recognizer.digits.model import json_depth
 from recognizer.page.boxes import Box
-from recognizer.forms.template import Reference, SumRule, Template, TemplateError, TemplateField
+from recognizer.forms.template import (
+    Reference, SumRule, Template, TemplateError, TemplateField, check_reference_size,
+)
 
 __all__ = [
     "FORMAT",
     "FORMAT_VERSION",
+    "LIMITS",
     "TemplateFileError",
     "load_template",
     "save_template",
@@ -70,6 +83,18 @@ __all__ = [
 
 FORMAT = "inkcount-template"
 FORMAT_VERSION = 1
+#: The most a template file may hold (the sample orchard card: 23 kB, nested 5 deep, 9 fields, 35 boxes).
+LIMITS: dict[str, int] = {
+    "file_bytes": 32 << 20,
+    "json_depth": 12,
+    "fields": 500,
+    "boxes": 5000,  # over all fields
+    "rules": 500,
+    "parts": 500,  # fields named by one sum rule
+    "text_chars": 10_000,  # a name or the description
+    "image_pixels": 20_000_000,  # the reference image (an A4 page at 100 dpi: 1 million)
+}
+_LARGEST_WHOLE = 10**15
 
 
 class TemplateFileError(Exception):
@@ -126,6 +151,7 @@ def _field_to_json(f: TemplateField) -> dict[str, Any]:
 
 def template_from_json(data: Any) -> Template:
     """Build a :class:`Template` from its JSON object; :class:`TemplateError` if it is not one."""
+    _check_numbers(data)
     obj = _object(data, "the file", _TOP_KEYS)
     if obj.get("format") != FORMAT:
         raise TemplateError(f"not an Inkcount template (format is {obj.get('format')!r}, expected {FORMAT!r})")
@@ -141,6 +167,10 @@ def template_from_json(data: Any) -> Template:
     rules = obj.get("rules", [])
     if not isinstance(fields, list) or not isinstance(rules, list):
         raise TemplateError("'fields' and 'rules' must be lists")
+    _check_counts(fields, rules)
+    for key in ("name", "description"):
+        if isinstance(obj.get(key), str) and len(obj[key]) > LIMITS["text_chars"]:
+            raise TemplateError(f"'{key}' is longer than {LIMITS['text_chars']} characters")
     return Template(
         name=_typed(obj, "name", str),
         version=_typed(obj, "version", int),
@@ -149,6 +179,50 @@ def template_from_json(data: Any) -> Template:
         sums=tuple(_sum_from_json(r, i) for i, r in enumerate(rules)),
         description=_typed(obj, "description", str, ""),
     )
+
+
+def _check_numbers(data: Any) -> None:
+    """Every number in the JSON is finite, and a whole number has at most 15 digits (a walk of a
+    tree whose depth was bounded before parsing)."""
+    stack = [data]
+    while stack:
+        item = stack.pop()
+        if isinstance(item, dict):
+            stack.extend(item.values())
+        elif isinstance(item, list):
+            stack.extend(item)
+        elif isinstance(item, bool):
+            continue
+        elif isinstance(item, int) and abs(item) >= _LARGEST_WHOLE:
+            raise TemplateError(f"the number {str(item)[:20]}... is far too large for a template")
+        elif isinstance(item, float) and not math.isfinite(item):
+            raise TemplateError(f"{item} is not a number a template can hold")
+
+
+def _check_counts(fields: list[Any], rules: list[Any]) -> None:
+    """Bound the numbers of fields, boxes, rules and parts before anything is built from them."""
+    if len(fields) > LIMITS["fields"]:
+        raise TemplateError(f"{len(fields)} fields; a template holds at most {LIMITS['fields']}")
+    boxes = sum(len(f["boxes"]) for f in fields if isinstance(f, dict) and isinstance(f.get("boxes"), list))
+    if boxes > LIMITS["boxes"]:
+        raise TemplateError(f"{boxes} boxes; a template holds at most {LIMITS['boxes']}")
+    if len(rules) > LIMITS["rules"]:
+        raise TemplateError(f"{len(rules)} rules; a template holds at most {LIMITS['rules']}")
+    for i, r in enumerate(rules):
+        if isinstance(r, dict) and isinstance(r.get("parts"), list) and len(r["parts"]) > LIMITS["parts"]:
+            raise TemplateError(f"rule {i + 1}: more than {LIMITS['parts']} parts")
+    for i, f in enumerate(fields):
+        if isinstance(f, dict) and isinstance(f.get("lengths"), list) and len(f["lengths"]) > 100:
+            raise TemplateError(f"field {i + 1}: more than 100 lengths")
+        if isinstance(f, dict) and isinstance(f.get("name"), str) and len(f["name"]) > LIMITS["text_chars"]:
+            raise TemplateError(f"field {i + 1}: the name is longer than {LIMITS['text_chars']} characters")
+
+
+def _png_size(png: bytes) -> tuple[int, int] | None:
+    """(width, height) from a PNG's header chunk, without decoding it; None if it is no PNG."""
+    if len(png) < 24 or png[:8] != b"\x89PNG\r\n\x1a\n" or png[12:16] != b"IHDR":
+        return None
+    return struct.unpack(">II", png[16:24])
 
 
 def _object(data: Any, what: str, keys: set[str]) -> dict[str, Any]:
@@ -177,20 +251,26 @@ def _typed(obj: dict[str, Any], key: str, kind: type | tuple[type, ...], default
 
 def _reference_from_json(data: Any) -> Reference:
     obj = _object(data, "'reference'", _REFERENCE_KEYS)
+    dpi = float(_typed(obj, "dpi", (int, float)))
+    width, height = _typed(obj, "width_px", int), _typed(obj, "height_px", int)
+    features_dpi = float(_typed(obj, "features_dpi", (int, float)))
+    check_reference_size(dpi, width, height, features_dpi)
     try:
         png = base64.b64decode(_typed(obj, "image_png", str), validate=True)
     except ValueError as exc:
         raise TemplateError(f"'reference': image_png is not base64 ({exc})") from None
+    size = _png_size(png)
+    if size is None:
+        raise TemplateError("'reference': image_png is not a PNG image")
+    f = features_dpi / dpi
+    if (size[0] > math.ceil(width * f) + 2 or size[1] > math.ceil(height * f) + 2
+            or size[0] * size[1] > LIMITS["image_pixels"]):
+        raise TemplateError(f"'reference': the image is {size[0]} x {size[1]} pixels, larger than the page "
+                            f"({width} x {height} at {dpi:g} dpi) at {features_dpi:g} dpi")
     image = cv2.imdecode(np.frombuffer(png, np.uint8), cv2.IMREAD_GRAYSCALE)
     if image is None:
         raise TemplateError("'reference': image_png is not a PNG image")
-    return Reference(
-        dpi=float(_typed(obj, "dpi", (int, float))),
-        width_px=_typed(obj, "width_px", int),
-        height_px=_typed(obj, "height_px", int),
-        features_dpi=float(_typed(obj, "features_dpi", (int, float))),
-        image=image,
-    )
+    return Reference(dpi=dpi, width_px=width, height_px=height, features_dpi=features_dpi, image=image)
 
 
 def _field_from_json(data: Any, index: int) -> TemplateField:
@@ -253,15 +333,26 @@ def load_template(path: str | os.PathLike) -> Template:
     """
     path = Path(path)
     try:
+        if path.stat().st_size > LIMITS["file_bytes"]:
+            raise TemplateFileError(path, f"not a template: {path.stat().st_size / 1e6:,.0f} MB, while a "
+                                    f"template file holds at most {LIMITS['file_bytes'] / 1e6:,.0f} MB")
         text = path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
         reason = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
         raise TemplateFileError(path, f"cannot read the template: {reason}") from None
+    if json_depth(text) > LIMITS["json_depth"]:
+        raise TemplateFileError(path, f"not a template: its JSON nests deeper than {LIMITS['json_depth']} levels")
     try:
-        data = json.loads(text)
+        data = json.loads(text, parse_constant=_no_constant)
     except json.JSONDecodeError as exc:
         raise TemplateFileError(path, f"not a template: damaged JSON at line {exc.lineno} ({exc.msg})") from None
+    except (ValueError, RecursionError) as exc:
+        raise TemplateFileError(path, f"not a template: {exc}") from None
     try:
         return template_from_json(data)
     except TemplateError as exc:
         raise TemplateFileError(path, str(exc)) from None
+
+
+def _no_constant(name: str) -> None:
+    raise ValueError(f"{name} is not a number a template can hold")

@@ -242,7 +242,8 @@ class PageReader:
         return self.read_finding(shown, source=page.source, page=page.page, ink=ink)
 
     def _read_with_template(self, page: Page) -> PageRead:
-        match = match_templates(page.image, dpi=page.dpi, registrars=self.registrars)
+        match = match_templates(page.image, dpi=page.dpi, registrars=self.registrars,
+                                dpi_known=page.dpi_origin in ("file", "render"))
         score = match.registration.score
         if not match:
             return PageRead(page.source, page.page, page.dpi, match.registration.rotation_deg, [],

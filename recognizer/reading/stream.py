@@ -9,6 +9,12 @@ read. It never holds more than a few pages at a time: with ``workers=1``
 pages are decoded and read one after the other; with more workers each
 process loads its own pages by (file, page number) and at most two pages per
 worker are in flight.
+
+A damaged scan never stops the stream: every file is opened, counted and
+decoded inside the per-file guard of :mod:`recognizer.scans.files`, and an
+error of the reader itself on one page becomes that page's
+:class:`~recognizer.scans.files.ScanProblem` too (worded as an error of the
+program, to be reported), so the pages after it are still read.
 """
 
 from __future__ import annotations
@@ -25,6 +31,7 @@ from pathlib import Path
 from recognizer.digits.model import DigitModel, load_model
 from recognizer.reading.page import PageRead, PageReader
 from recognizer.scans.files import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, Page, ScanProblem, count_pages, iter_pages, load_page
+from recognizer.scans.limits import MAX_PAGE_PROBLEMS_PER_FILE, program_error_words
 from recognizer.forms.template_file import load_template
 
 __all__ = ["ReadSettings", "read_scans", "PageJob", "page_jobs"]
@@ -61,8 +68,10 @@ def page_jobs(
 ) -> Iterator[PageJob | ScanProblem]:
     """List the pages of ``files`` without decoding them.
 
-    ``skip(path, page)`` may leave out pages already read (the batch store
-    uses it when a batch is extended).
+    The count is the guarded probe :func:`~recognizer.scans.files.count_pages`
+    (headers only): a file it refuses is one problem here. ``skip(path, page)``
+    may leave out pages already read (the batch store uses it when a batch is
+    extended).
     """
     for raw in files:
         path = Path(raw)
@@ -106,15 +115,58 @@ def read_scans(
         if skip is None:
             pages = iter_pages(files, pdf_dpi=settings.pdf_dpi, max_pixels=settings.max_pixels)
         else:
-            pages = (
+            pages = _few_problems_per_file(
                 job if isinstance(job, ScanProblem)
                 else load_page(job.source, job.page, pdf_dpi=settings.pdf_dpi, max_pixels=settings.max_pixels)
                 for job in page_jobs(files, max_pixels=settings.max_pixels, skip=skip)
             )
         for item in _decoded_ahead(pages):
-            yield item if isinstance(item, ScanProblem) else reader.read(item)
+            yield item if isinstance(item, ScanProblem) else _read_page(reader, item)
         return
-    yield from _read_in_pool(files, settings, workers, skip)
+    yield from _few_problems_per_file(_read_in_pool(files, settings, workers, skip))
+
+
+def _read_page(reader: PageReader, page: Page) -> PageRead | ScanProblem:
+    """``reader.read(page)``, an error of the reader on this page made its problem line."""
+    try:
+        return reader.read(page)
+    except Exception as exc:  # a bug met on an odd page must not stop the batch
+        return ScanProblem(page.source, page.page, program_error_words(exc))
+
+
+def _few_problems_per_file(results: Iterable) -> Iterator:
+    """Pass ``results`` on, with at most :data:`MAX_PAGE_PROBLEMS_PER_FILE` page problems per file.
+
+    The pages of a file are listed before they are loaded when they are read
+    by page number (a pool, or a batch being extended); a file whose pages
+    are all damaged would otherwise give one line per page. The lines past
+    the limit become one line per file; the pages read well all pass.
+    """
+    counts: dict[Path, int] = {}
+    hidden: dict[Path, int] = {}
+    last: Path | None = None
+
+    def summary(source: Path) -> ScanProblem:
+        return ScanProblem(source, None, f"{hidden.pop(source)} more damaged pages of this file are not "
+                           f"listed one by one (the first {MAX_PAGE_PROBLEMS_PER_FILE} are)")
+
+    try:
+        for item in results:
+            source = Path(item.source)
+            if last in hidden and source != last:
+                yield summary(last)
+            last = source
+            if isinstance(item, ScanProblem) and item.page is not None:
+                counts[source] = counts.get(source, 0) + 1
+                if counts[source] > MAX_PAGE_PROBLEMS_PER_FILE:
+                    hidden[source] = hidden.get(source, 0) + 1
+                    continue
+            yield item
+        if last in hidden:
+            yield summary(last)
+    finally:
+        if hasattr(results, "close"):
+            results.close()
 
 
 def _decoded_ahead(pages: Iterator[Page | ScanProblem], depth: int = 1) -> Iterator[Page | ScanProblem]:
@@ -173,7 +225,7 @@ def _reader(model: DigitModel, settings: ReadSettings) -> PageReader:
 
 def _read_job(reader: PageReader, job: PageJob, settings: ReadSettings) -> PageRead | ScanProblem:
     page = load_page(job.source, job.page, pdf_dpi=settings.pdf_dpi, max_pixels=settings.max_pixels)
-    return page if isinstance(page, ScanProblem) else reader.read(page)
+    return page if isinstance(page, ScanProblem) else _read_page(reader, page)
 
 
 # Worker processes: one reader per process, built once.

@@ -4,7 +4,8 @@ What must be checked is decided by :mod:`recognizer.states`; this package
 records what people do about it. Modules: :mod:`~recognizer.review.actions`
 (set, confirm, unreadable, undo), :mod:`~recognizer.review.queue`,
 :mod:`~recognizer.review.strictness`, :mod:`~recognizer.review.reread`,
-:mod:`~recognizer.review.checked_export`.
+:mod:`~recognizer.review.checked_export`, :mod:`~recognizer.review.oddness`
+(the sort wall's order: the crops least like their group's typical shape first).
 """
 
 from recognizer.batch.queries import state_counts
@@ -21,6 +22,7 @@ from recognizer.review.actions import (
 )
 from recognizer.review.checked_export import ExportResult, checked_table, export_checked, unchecked_message
 from recognizer.review.errors import ReviewError
+from recognizer.review.oddness import GroupRanking, RankedCrop, rank_group
 from recognizer.review.queue import ORDERS, ReviewItem, ReviewQueue
 from recognizer.review.reread import RereadSummary, reread_unchecked
 from recognizer.review.strictness import set_target_error, set_threshold
@@ -31,8 +33,8 @@ READ, TO_CHECK, CORRECTED, CONFIRMED, UNREADABLE = (
 
 __all__ = [
     "READ", "TO_CHECK", "CORRECTED", "CONFIRMED", "UNREADABLE", "STATES", "State", "DEFAULT_TARGET_ERROR",
-    "ORDERS", "Action", "ReviewError", "ReviewItem", "ReviewQueue", "RereadSummary", "ExportResult",
+    "ORDERS", "Action", "GroupRanking", "RankedCrop", "ReviewError", "ReviewItem", "ReviewQueue", "RereadSummary", "ExportResult",
     "actions", "checked_table", "confirm", "default_reviewer", "export_checked", "find_field",
-    "mark_unreadable", "reread_unchecked", "set_digit", "set_field", "set_target_error", "set_threshold",
+    "mark_unreadable", "rank_group", "reread_unchecked", "set_digit", "set_field", "set_target_error", "set_threshold",
     "state_counts", "unchecked_message", "undo",
 ]

@@ -9,16 +9,21 @@ Pages are streamed: :func:`iter_pages` opens each file only when it gets to it
 and yields one page at a time, so a 500-page batch is never held in memory.
 
 Everything that can go wrong with a file (empty, truncated, not an image, an
-encrypted PDF, an image too large to decode safely) comes back as a
-:class:`ScanProblem` in the same stream, naming the file, the page and the
-reason in plain words; the pages after it are still read.
+encrypted PDF, an image too large to decode safely, any error a damaged file
+makes a decoder raise) comes back as a :class:`ScanProblem` in the same
+stream, naming the file, the page and the reason in plain words; the pages
+after it are still read. The limits on one file (pixels, decoded bytes,
+pages) are checked from its headers before anything is decoded; they and
+their reasons are in :mod:`recognizer.scans.limits`.
 """
 
 from __future__ import annotations
 
+import math
 import os
 import warnings
 from collections.abc import Iterable, Iterator
+from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -26,6 +31,23 @@ import cv2
 import numpy as np
 from PIL import Image, ImageOps, UnidentifiedImageError
 
+from recognizer.scans.limits import (
+    DEFAULT_MAX_PIXELS,
+    MAX_BYTES_PER_PIXEL,
+    MAX_PAGE_PROBLEMS_PER_FILE,
+    MAX_PAGES_PER_FILE,
+    check_pillow_settings,
+    damage_words,
+    declared_bytes_per_pixel,
+    image_format_by_start,
+    pdf_has_end,
+    program_error_words,
+    tiff_page_count,
+    too_large_words,
+    too_many_bytes_words,
+    too_many_pages_words,
+)
+from recognizer.scans.dpi import estimate_dpi, file_dpi
 from recognizer.scans.photo import PhotoRefused, flatten_photo, is_colour, undo_negative
 
 __all__ = [
@@ -46,19 +68,11 @@ IMAGE_SUFFIXES = frozenset({".png", ".jpg", ".jpeg", ".bmp", ".tif", ".tiff"})
 PDF_SUFFIXES = frozenset({".pdf"})
 SCAN_SUFFIXES = IMAGE_SUFFIXES | PDF_SUFFIXES
 
-#: Largest page, in pixels, that is decoded. An A3 sheet at 600 dpi is about
-#: 70 million pixels; anything far beyond is a damaged file or a
-#: decompression bomb (a small file that expands to gigabytes).
-DEFAULT_MAX_PIXELS = 120_000_000
+# DEFAULT_MAX_PIXELS (largest page decoded) and the other limits on one file
+# live, with their reasons, in recognizer.scans.limits.
 
 #: Resolution PDF pages are rendered at unless asked otherwise.
 DEFAULT_PDF_DPI = 300
-
-# Paper sizes (long side, inches) tried when a file carries no usable dpi:
-# A4, US Letter, A5 (common practice, no source: the sizes forms are printed on).
-_PAPER_LONG_SIDE_IN = (297 / 25.4, 11.0, 210 / 25.4)
-_COMMON_DPI = (150, 200, 240, 300, 400, 600)
-
 
 @dataclass
 class Page:
@@ -109,9 +123,19 @@ class ScanProblem:
     def __bool__(self) -> bool:  # a problem is never a usable page
         return False
 
+    def line(self, *, name_only: bool = False) -> str:
+        """The problem line people see (the command line and the window alike).
+
+        ``card_07.tif: page 2: the file is damaged: ...``, or without the page
+        for a problem with the whole file; ``name_only`` shows the file's name
+        instead of its path.
+        """
+        where = Path(self.source).name if name_only else str(self.source)
+        page = f"page {self.page}: " if self.page is not None else ""
+        return f"{where}: {page}{self.reason}"
+
     def __str__(self) -> str:
-        where = f"page {self.page}" if self.page is not None else "whole file"
-        return f"{self.source}: {where}: {self.reason}"
+        return self.line()
 
 
 # --------------------------------------------------------------------------
@@ -170,93 +194,160 @@ def _natural_key(path: Path) -> list:
 
 # --------------------------------------------------------------------------
 # Reading pages
+#
+# Every file is opened, counted and decoded inside one guard (:func:`_file_pages`,
+# :func:`count_pages`, :func:`load_page`): whatever a damaged file makes Pillow or
+# pdfium raise becomes a ScanProblem in plain words (:func:`limits.damage_words`),
+# and the limits of :mod:`recognizer.scans.limits` are checked from the headers
+# before anything is decoded.
 
 
 class _Refused(Exception):
     """A file or page that cannot be read; carries the plain-words reason."""
 
 
-def count_pages(
-    path: str | os.PathLike, *, max_pixels: int = DEFAULT_MAX_PIXELS
-) -> int | ScanProblem:
-    """Number of pages in a scan file, or the problem that stops it being read."""
+class _Broken(_Refused):
+    """The file's chain of pages breaks at this page: the pages after it cannot be reached."""
+
+
+def _problem(path: Path, page: int | None, exc: Exception) -> ScanProblem:
+    """The problem line for any error met while opening, counting or decoding a file."""
+    return ScanProblem(path, page, str(exc) if isinstance(exc, _Refused) else damage_words(exc))
+
+
+def count_pages(path: str | os.PathLike, *, max_pixels: int = DEFAULT_MAX_PIXELS) -> int | ScanProblem:
+    """Number of pages in a scan file, or the problem that stops it being read.
+
+    A cheap probe that never raises: headers only, nothing is decoded (a
+    TIFF's chain of pages is walked without reading their tags). A file
+    declaring more than :data:`~recognizer.scans.limits.MAX_PAGES_PER_FILE`
+    pages is refused here.
+    """
     path = Path(path)
     try:
-        kind = _kind(path)
-        if kind == "pdf":
+        head = _head(path)
+        if _is_pdf(head):
             with _open_pdf(path) as pdf:
-                return len(pdf)
+                return _page_count(path, pdf)
         with _open_image(path, max_pixels) as img:
-            return int(getattr(img, "n_frames", 1))
-    except _Refused as exc:
-        return ScanProblem(path, None, str(exc))
+            return _page_count(path, img)
+    except Exception as exc:
+        return _problem(path, None, exc)
 
 
-def load_page(
-    path: str | os.PathLike,
-    page: int,
-    *,
-    pdf_dpi: float = DEFAULT_PDF_DPI,
-    max_pixels: int = DEFAULT_MAX_PIXELS,
-) -> Page | ScanProblem:
-    """Load one page (numbered from 1) of a scan file."""
+def load_page(path: str | os.PathLike, page: int, *, pdf_dpi: float = DEFAULT_PDF_DPI,
+              max_pixels: int = DEFAULT_MAX_PIXELS) -> Page | ScanProblem:
+    """Load one page (numbered from 1) of a scan file; never raises."""
     path = Path(path)
+    check_pillow_settings()
     try:
-        if _kind(path) == "pdf":
+        head = _head(path)
+        if _is_pdf(head):
             with _open_pdf(path) as pdf:
                 if not 1 <= page <= len(pdf):
                     raise _Refused(f"the PDF has no page {page}")
                 return _render_pdf_page(path, pdf, page, pdf_dpi, max_pixels)
         with _open_image(path, max_pixels) as img:
-            return _image_page(path, img, page, max_pixels)
-    except _Refused as exc:
-        return ScanProblem(path, page, str(exc))
+            return _image_page(path, img, page, max_pixels, head)
+    except Exception as exc:
+        return _problem(path, page, exc)
 
 
-def iter_pages(
-    files: Iterable[str | os.PathLike],
-    *,
-    pdf_dpi: float = DEFAULT_PDF_DPI,
-    max_pixels: int = DEFAULT_MAX_PIXELS,
-) -> Iterator[Page | ScanProblem]:
+def iter_pages(files: Iterable[str | os.PathLike], *, pdf_dpi: float = DEFAULT_PDF_DPI,
+               max_pixels: int = DEFAULT_MAX_PIXELS) -> Iterator[Page | ScanProblem]:
     """Yield every page of every file in turn, or the problem met instead.
 
     Each file is opened once; its pages are decoded one at a time as the
-    caller asks for them. A problem with one page (a truncated frame of a
+    caller asks for them. A problem with one page (a damaged frame of a
     TIFF, say) does not stop the pages after it; a problem with a whole file
-    (empty, encrypted, not an image) yields one :class:`ScanProblem` with
-    ``page=None`` and moves on to the next file.
+    (empty, encrypted, not an image, too many pages) yields one
+    :class:`ScanProblem` with ``page=None`` and moves on to the next file.
+    Whatever error a damaged file causes, it ends as a problem line: this
+    never raises for a bad file.
     """
+    check_pillow_settings()
     for raw in files:
-        path = Path(raw)
+        yield from _file_pages(Path(raw), pdf_dpi, max_pixels)
+
+
+def _file_pages(path: Path, pdf_dpi: float, max_pixels: int) -> Iterator[Page | ScanProblem]:
+    """The pages of one file, every error a problem line (the per-file guard)."""
+    with ExitStack() as stack:
         try:
-            if _kind(path) == "pdf":
-                with _open_pdf(path) as pdf:
-                    for number in range(1, len(pdf) + 1):
-                        try:
-                            yield _render_pdf_page(path, pdf, number, pdf_dpi, max_pixels)
-                        except _Refused as exc:
-                            yield ScanProblem(path, number, str(exc))
-            else:
-                with _open_image(path, max_pixels) as img:
-                    for number in range(1, int(getattr(img, "n_frames", 1)) + 1):
-                        try:
-                            yield _image_page(path, img, number, max_pixels)
-                        except _Refused as exc:
-                            yield ScanProblem(path, number, str(exc))
-        except _Refused as exc:
-            yield ScanProblem(path, None, str(exc))
+            head = _head(path)
+            pdf = _is_pdf(head)
+            doc = stack.enter_context(_open_pdf(path) if pdf else _open_image(path, max_pixels))
+            with _quiet():
+                count = _page_count(path, doc)
+        except Exception as exc:
+            yield _problem(path, None, exc)
+            return
+        damaged = 0
+        for number in range(1, count + 1):
+            try:
+                if pdf:
+                    page = _render_pdf_page(path, doc, number, pdf_dpi, max_pixels)
+                else:
+                    page = _image_page(path, doc, number, max_pixels, head)
+            except _Broken as exc:
+                rest = f"; pages {number + 1}-{count} were not read" if number < count else ""
+                yield ScanProblem(path, number, f"{exc}{rest}")
+                return
+            except Exception as exc:
+                yield _problem(path, number, exc)
+                damaged += 1
+                if damaged >= MAX_PAGE_PROBLEMS_PER_FILE and number < count:
+                    yield ScanProblem(path, None, f"{damaged} pages are damaged, so the rest of the file "
+                                      f"(pages {number + 1}-{count}) was not read")
+                    return
+                continue
+            yield page
+
+
+def _page_count(path: Path, doc) -> int:
+    """Pages of an open PDF or image, refused past the page limit."""
+    if isinstance(doc, Image.Image):
+        if doc.format == "TIFF":
+            with open(path, "rb") as fh:
+                count = tiff_page_count(fh, os.fstat(fh.fileno()).st_size)
+            exact = count <= MAX_PAGES_PER_FILE
+        else:
+            count, exact = int(getattr(doc, "n_frames", 1)), True
+    else:
+        count, exact = len(doc), True
+    if count > MAX_PAGES_PER_FILE:
+        raise _Refused(too_many_pages_words(count, exact=exact))
+    if count < 1:
+        raise _Refused("the file holds no pages")
+    return count
 
 
 # --------------------------------------------------------------------------
 # Images (Pillow)
 
+@contextmanager
+def _quiet() -> Iterator[None]:
+    """No warnings while a file is opened or decoded: a damaged file's trouble is its problem line."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        yield
 
-def _kind(path: Path) -> str:
-    """'pdf' or 'image', decided by the file's first bytes (not its name)."""
+
+#: The formats Pillow is allowed to try (any other plugin never sees the file);
+#: a JPEG with several pictures opens as MPO.
+_PILLOW_FORMATS = ("PNG", "JPEG", "BMP", "DIB", "TIFF")
+
+
+def _is_pdf(head: bytes) -> bool:
+    """A PDF or an image is told by the file's first bytes, not its name."""
+    return head.startswith(b"%PDF")
+
+
+def _head(path: Path) -> bytes:
+    """The first bytes of a file (enough for the kind and a PNG's header)."""
     try:
         with open(path, "rb") as fh:
-            head = fh.read(8)
+            head = fh.read(32)
     except FileNotFoundError:
         raise _Refused("file not found") from None
     except IsADirectoryError:
@@ -265,12 +356,12 @@ def _kind(path: Path) -> str:
         raise _Refused(f"cannot open the file ({exc.strerror or exc})") from None
     if not head:
         raise _Refused("the file is empty (0 bytes)")
-    return "pdf" if head.startswith(b"%PDF") else "image"
+    return head
 
 
 class _open_image:
-    """Context manager opening an image lazily, with the pixel limit checked
-    from the header before anything is decoded."""
+    """Context manager opening an image lazily (header only); limits are checked per page
+    by :func:`_image_page` before anything is decoded."""
 
     def __init__(self, path: Path, max_pixels: int):
         self.path = path
@@ -279,20 +370,19 @@ class _open_image:
 
     def __enter__(self) -> Image.Image:
         try:
-            with warnings.catch_warnings():
-                # Our own limit is checked below, with a clearer message.
-                warnings.simplefilter("ignore", Image.DecompressionBombWarning)
-                self.img = Image.open(self.path)
+            with _quiet():  # our own limits are checked later, with clearer words
+                self.img = Image.open(self.path, formats=_PILLOW_FORMATS)
         except UnidentifiedImageError:
+            fmt = image_format_by_start(self.path)
+            if fmt is not None:
+                raise _Refused(f"the file is damaged: it starts as a {fmt} image but cannot be opened") from None
             raise _Refused(
                 "not an image or PDF that Inkcount can read "
                 "(PNG, JPEG, BMP, TIFF and PDF are supported)"
             ) from None
         except Image.DecompressionBombError:
-            raise _Refused(_too_large_message(None, self.max_pixels)) from None
-        except OSError as exc:
-            raise _Refused(f"the image file is damaged ({exc})") from None
-        if self.img.format not in {"PNG", "JPEG", "MPO", "BMP", "DIB", "TIFF"}:
+            raise _Refused(too_large_words(None, self.max_pixels)) from None
+        if self.img.format not in {*_PILLOW_FORMATS, "MPO"}:
             fmt = self.img.format
             self.img.close()
             raise _Refused(
@@ -302,44 +392,45 @@ class _open_image:
 
     def __exit__(self, *exc) -> None:
         if self.img is not None:
-            self.img.close()
+            try:
+                self.img.close()
+            except Exception:  # closing a damaged file must not hide the problem met
+                pass
 
 
-def _too_large_message(pixels: int | None, limit: int) -> str:
-    size = f" ({pixels / 1e6:.0f} million pixels)" if pixels else ""
-    return (
-        f"the image is too large to read safely{size}; the limit is "
-        f"{limit / 1e6:.0f} million pixels (about A3 at 600 dpi)"
-    )
+def _image_page(path: Path, img: Image.Image, number: int, max_pixels: int, head: bytes) -> Page:
+    with _quiet():
+        return _decoded_page(path, img, number, max_pixels, head)
 
 
-def _image_page(path: Path, img: Image.Image, number: int, max_pixels: int) -> Page:
+def _decoded_page(path: Path, img: Image.Image, number: int, max_pixels: int, head: bytes) -> Page:
     try:
         img.seek(number - 1)
     except EOFError:
-        raise _Refused(f"the file has no page {number}") from None
-    except OSError as exc:
-        raise _Refused(f"the page is damaged ({exc})") from None
+        raise _Broken(f"the file is damaged: page {number} cannot be found") from None
+    except Exception as exc:
+        raise _Broken(damage_words(exc)) from None
     width, height = img.size
     if width * height > max_pixels:
-        raise _Refused(_too_large_message(width * height, max_pixels))
+        raise _Refused(too_large_words(width * height, max_pixels))
+    size = width * height * declared_bytes_per_pixel(img, head)
+    if size > max_pixels * MAX_BYTES_PER_PIXEL:
+        raise _Refused(too_many_bytes_words(int(size), max_pixels * MAX_BYTES_PER_PIXEL))
     if width < 16 or height < 16:
         raise _Refused(f"the page is only {width}x{height} pixels, too small to be a scan")
+    img.load()
+    oriented = ImageOps.exif_transpose(img) if number == 1 else img
+    gray = _to_gray(oriented)
+    colour = _colour(oriented, gray.shape)
+    dpi = file_dpi(img)
     try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", Image.DecompressionBombWarning)
-            img.load()
-            gray = _to_gray(ImageOps.exif_transpose(img) if number == 1 else img)
-    except (OSError, ValueError, SyntaxError) as exc:
-        reason = str(exc) or type(exc).__name__
-        if "truncated" in reason.lower():
-            raise _Refused("the file is truncated (cut off before the end of the image)") from None
-        raise _Refused(f"the image data is damaged ({reason})") from None
-    colour = _colour(img if number > 1 else ImageOps.exif_transpose(img), gray.shape)
-    dpi = _file_dpi(img)
-    if dpi is None:
-        return _captured(Page(path, number, gray, estimate_dpi(gray.shape), "page size", colour=colour))
-    return _captured(Page(path, number, gray, dpi, "file", colour=colour))
+        if dpi is None:
+            return _captured(Page(path, number, gray, estimate_dpi(gray.shape), "page size", colour=colour))
+        return _captured(Page(path, number, gray, dpi, "file", colour=colour))
+    except (_Refused, MemoryError):
+        raise
+    except Exception as exc:  # the page decoded; what failed is ours
+        raise _Refused(program_error_words(exc)) from None
 
 
 def _colour(img: Image.Image, shape: tuple[int, int]) -> np.ndarray | None:
@@ -375,13 +466,13 @@ def _to_gray(img: Image.Image) -> np.ndarray:
     """Any Pillow mode -> (M, N) uint8 gray, 0 = black, 255 = white."""
     mode = img.mode
     if mode in {"I;16", "I;16B", "I;16L", "I;16N", "I"}:
-        arr = np.asarray(img, dtype=np.float64)
+        arr = np.asarray(img)
         top = 65535.0 if mode != "I" or arr.max() > 255 else 255.0
-        return np.clip(arr * (255.0 / top) + 0.5, 0, 255).astype(np.uint8)
+        return _scaled_to_bytes(arr, top)
     if mode == "F":
-        arr = np.asarray(img, dtype=np.float64)
+        arr = np.asarray(img)
         top = 1.0 if arr.max() <= 1.0 else 255.0
-        return np.clip(arr * (255.0 / top) + 0.5, 0, 255).astype(np.uint8)
+        return _scaled_to_bytes(arr, top)
     if mode in {"RGBA", "LA", "PA"} or (mode == "P" and "transparency" in img.info):
         rgba = img.convert("RGBA")
         white = Image.new("RGBA", rgba.size, (255, 255, 255, 255))
@@ -391,50 +482,13 @@ def _to_gray(img: Image.Image) -> np.ndarray:
     return np.array(img, dtype=np.uint8)
 
 
-def _file_dpi(img: Image.Image) -> float | None:
-    """The resolution stored in the file, or None when absent or implausible."""
-    dpi = img.info.get("dpi")
-    if dpi is None and img.info.get("jfif_unit") == 1:
-        dpi = img.info.get("jfif_density")
-    if dpi is None and img.info.get("jfif_unit") == 2:  # dots per cm
-        dens = img.info.get("jfif_density")
-        dpi = tuple(d * 2.54 for d in dens) if dens else None
-    if not dpi:
-        return None
-    try:
-        x = float(dpi[0] if isinstance(dpi, tuple) else dpi)
-    except (TypeError, ValueError, IndexError):
-        return None
-    if not 50 <= x <= 2400:
-        return None
-    # 72 and 96 dpi are what many programs write when they know nothing; trust
-    # them only if the page they imply is a plausible paper size.
-    long_side_in = max(img.size) / x
-    if x in (72.0, 96.0) and long_side_in > 14.5:
-        return None
-    return round(x, 2)
-
-
-def estimate_dpi(shape: tuple[int, int]) -> float:
-    """Guess the resolution of a page from its pixel size.
-
-    Assumes the sheet is A4, US Letter or A5 (whichever gives a resolution
-    closest to a usual scanner setting) and snaps to that setting when it is
-    within 6 %.
-
-    >>> estimate_dpi((3508, 2480))
-    300.0
-    """
-    long_px = float(max(shape))
-    best: tuple[float, float] | None = None
-    for side in _PAPER_LONG_SIDE_IN:
-        raw = long_px / side
-        common = min(_COMMON_DPI, key=lambda d: abs(d - raw))
-        miss = abs(common - raw) / common
-        if best is None or miss < best[0]:
-            best = (miss, common if miss <= 0.06 else raw)
-    assert best is not None
-    return float(round(best[1], 1))
+def _scaled_to_bytes(arr: np.ndarray, top: float, rows: int = 256) -> np.ndarray:
+    """0..top -> 0..255 uint8, a band of rows at a time (a deep page is never held as float64 whole)."""
+    out = np.empty(arr.shape[:2], np.uint8)
+    for r in range(0, arr.shape[0], rows):
+        band = arr[r : r + rows].astype(np.float64)
+        out[r : r + rows] = np.clip(band * (255.0 / top) + 0.5, 0, 255).astype(np.uint8)
+    return out
 
 
 # --------------------------------------------------------------------------
@@ -442,6 +496,8 @@ def estimate_dpi(shape: tuple[int, int]) -> float:
 
 
 class _open_pdf:
+    """Context manager opening a PDF with pypdfium2 (its pages are parsed one by one, later)."""
+
     def __init__(self, path: Path):
         self.path = path
         self.pdf = None
@@ -460,11 +516,21 @@ class _open_pdf:
             if "format" in text or "data format" in text:
                 raise _Refused("the PDF is damaged or truncated (cannot be opened)") from None
             raise _Refused(f"the PDF cannot be opened ({exc})") from None
+        if not pdf_has_end(self.path):
+            # pdfium repairs a cut-off PDF silently and draws what is left, so a
+            # page could be read half blank with no word said: refuse it instead.
+            self.pdf.close()
+            self.pdf = None
+            raise _Refused("the PDF is damaged: it ends before its last part "
+                           "(truncated, perhaps cut off while copying)")
         return self.pdf
 
     def __exit__(self, *exc) -> None:
         if self.pdf is not None:
-            self.pdf.close()
+            try:
+                self.pdf.close()
+            except Exception:  # closing a damaged file must not hide the problem met
+                pass
 
 
 def _render_pdf_page(path: Path, pdf, number: int, dpi: float, max_pixels: int) -> Page:
@@ -473,14 +539,15 @@ def _render_pdf_page(path: Path, pdf, number: int, dpi: float, max_pixels: int) 
     try:
         pg = pdf[number - 1]
     except (pdfium.PdfiumError, IndexError) as exc:
-        raise _Refused(f"the page cannot be opened ({exc})") from None
+        raise _Refused(f"the PDF is damaged: page {number} cannot be opened ({exc})") from None
     try:
+        # the size is checked before anything is drawn: points x dpi
         w_pt, h_pt = pg.get_size()
-        pixels = int(w_pt / 72 * dpi) * int(h_pt / 72 * dpi)
+        if not (math.isfinite(w_pt) and math.isfinite(h_pt)) or w_pt < 1 or h_pt < 1:
+            raise _Refused("the PDF is damaged: the page has no usable size")
+        pixels = math.ceil(w_pt / 72 * dpi) * math.ceil(h_pt / 72 * dpi)
         if pixels > max_pixels:
-            raise _Refused(_too_large_message(pixels, max_pixels))
-        if pixels <= 0:
-            raise _Refused("the page has no size")
+            raise _Refused(too_large_words(pixels, max_pixels))
         bitmap = pg.render(scale=dpi / 72.0, grayscale=False, rev_byteorder=True)
         try:
             rgb = np.ascontiguousarray(bitmap.to_numpy()[..., :3])
@@ -488,7 +555,7 @@ def _render_pdf_page(path: Path, pdf, number: int, dpi: float, max_pixels: int) 
         finally:
             bitmap.close()
     except pdfium.PdfiumError as exc:
-        raise _Refused(f"the page cannot be drawn ({exc})") from None
+        raise _Refused(f"the PDF is damaged: page {number} cannot be drawn ({exc})") from None
     finally:
         pg.close()
     return Page(path, number, gray, float(dpi), "render", colour=rgb if is_colour(rgb) else None)

@@ -103,13 +103,12 @@ def _damaged(path: Path) -> None:
     "make, message",
     [
         (lambda p: None, "no such file"),
-        (lambda p: p.write_bytes(b""), "not an SQLite database"),
         (lambda p: p.write_text("grower,crates\n00412,12\n"), "not an SQLite database"),
         (_foreign_sqlite, "not an Inkcount batch file"),
         (_newer, "newer Inkcount"),
         (_damaged, "damaged"),
     ],
-    ids=["missing", "empty", "text", "foreign sqlite", "newer", "damaged"],
+    ids=["missing", "text", "foreign sqlite", "newer", "damaged"],  # an empty file: test_kill_create.py
 )
 def test_open_refuses_unusable_files_clearly(tmp_path, make, message):
     path = tmp_path / "b.inkcount"

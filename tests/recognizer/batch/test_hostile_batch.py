@@ -1,0 +1,175 @@
+"""Hostile batch files (issue 12): each is refused with a BatchFileError naming the file when
+it is opened (or, for an image, before the image is decoded), and the commands say so.
+
+The attacks are the ones seen when the batch was tried as an attacker: the Inkcount marker
+with tables missing, settings that are bad JSON or of the wrong kind, stored box JSON of the
+wrong shape, a page image that is a decompression bomb; and scan names that are not UTF-8.
+"""
+
+from __future__ import annotations
+
+import os
+import sqlite3
+import struct
+import tracemalloc
+import zlib
+from pathlib import Path
+
+import pytest
+
+import recognizer.ingest as ingest_module
+from recognizer.batch import checks
+from recognizer.batch.queries import stored_files
+from recognizer.batch.samples import labelled_samples
+from recognizer.batch.store import Batch, BatchFileError, BatchSettings
+from recognizer.ingest import ingest_scans
+from recognizer.review import confirm, set_field
+from tests.support.batches import FakeModel, add_page, fake_reader, new_batch
+from tests.support.cli import run
+
+
+@pytest.fixture
+def path(tmp_path: Path) -> Path:
+    """A sound batch with one page and one review action."""
+    path = tmp_path / "hostile.inkcount"
+    with new_batch(path) as batch:
+        add_page(batch, "a.png")
+        first = batch.rows("SELECT id FROM fields ORDER BY id")[0][0]
+        set_field(batch, first, "123", reviewer="test")
+        confirm(batch, field=first, reviewer="test")
+    return path
+
+
+def _alter(path: Path, *statements: str, params=()) -> None:
+    conn = sqlite3.connect(path)
+    for sql in statements:
+        conn.execute(sql, params if "?" in sql else ())
+    conn.commit()
+    conn.close()
+
+
+def _refused(path: Path, message: str, capsys=None) -> None:
+    for read_only in (False, True):
+        with pytest.raises(BatchFileError, match=message) as info:
+            Batch.open(path, read_only=read_only)
+        assert "hostile.inkcount" in str(info.value) and len(str(info.value)) < 400
+    assert not Path(f"{path}.lock").exists()
+    if capsys is not None:  # the command names the file and the reason
+        capsys.readouterr()
+        assert run("status", str(path)) == 2
+        err = capsys.readouterr().err
+        assert "hostile.inkcount" in err and message.split(".*")[0].replace("\\", "") in err
+
+
+def test_marker_with_missing_tables(path: Path, capsys) -> None:
+    _alter(path, "DROP TABLE actions", "DROP TABLE digits", "DROP TABLE fields")
+    _refused(path, "the table 'actions' is missing", capsys)
+
+
+def test_a_missing_column(path: Path) -> None:
+    _alter(path, "ALTER TABLE templates RENAME COLUMN json TO other")
+    _refused(path, "the table 'templates' lacks the column\\(s\\) json")
+
+
+@pytest.mark.parametrize(("key", "text", "message"), [
+    ("flag_rule", "{not json", "the setting 'flag_rule' is not valid JSON"),
+    ("threshold", '"high"', "the setting 'threshold' is 'high'; it must be a number from 0 to 1"),
+    ("threshold", "NaN", "the setting 'threshold' is not valid JSON"),
+    ("threshold", "7", "it must be a number from 0 to 1"),
+    ("learning_every", "true", "it must be a whole number from 1"),
+    ("threshold_source", '"sometimes"', "it must be 'target' or 'manual'"),
+    ("learning_last", "[" * 5000 + "]" * 5000, "nests deeper than"),
+    ("model_path", '"' + "x" * 200_000 + '"', "characters long"),
+], ids=["bad-json", "threshold-text", "nan", "threshold-7", "bool-for-int", "source", "deep", "long"])
+def test_bad_settings(path: Path, key: str, text: str, message: str, capsys) -> None:
+    _alter(path, "INSERT INTO settings (key, value) VALUES (?, ?) "
+           "ON CONFLICT(key) DO UPDATE SET value = excluded.value", params=(key, text))
+    _refused(path, message, capsys)
+
+
+def test_settings_checked_are_the_batch_settings() -> None:
+    assert checks.SETTING_NAMES == {f for f in BatchSettings.__dataclass_fields__}
+
+
+@pytest.mark.parametrize(("sql", "message"), [
+    ("UPDATE fields SET boxes = '[[1, 2, 3]]' WHERE id = 1", "the boxes of field 1 is not what Inkcount stores"),
+    ("UPDATE fields SET boxes = '[{\"x0\": 1}]' WHERE id = 1", "the boxes of field 1 is not what Inkcount stores"),
+    ("UPDATE fields SET boxes = '[[1, 2, 3, 4]]' WHERE id = 1", "names a box the field does not have"),
+    ("UPDATE fields SET doubts = '[1]' WHERE id = 2", "the box doubts of field 2"),
+    ("UPDATE pages SET layout = '[[\"f01\"]]'", "the layout of page 1"),
+    ("UPDATE pages SET warnings = 'x'", "the warnings of page 1 is not valid JSON"),
+    ("UPDATE actions SET before = '{\"field\": [\"1\", 0, null]}'", "the undo snapshot of action"),
+    ("UPDATE digits SET state = 'lost' WHERE id = 3", "digit 3 has an unknown state 'lost'"),
+    ("UPDATE digits SET confidence = 'sure' WHERE id = 3", "digit 3 holds a confidence"),
+    ("UPDATE digits SET probs = x'00' WHERE id = 3", "digit 3 holds a confidence, box number, probabilities"),
+], ids=["box-of-three", "box-missing-keys", "box-count", "doubts", "layout", "warnings", "snapshot", "state",
+        "confidence", "probs"])
+def test_stored_values_of_the_wrong_shape(path: Path, sql: str, message: str) -> None:
+    _alter(path, sql)
+    _refused(path, message)
+
+
+def _png_bomb(width: int, height: int) -> bytes:
+    """A real grey PNG of ``width`` x ``height`` white pixels, deflated to almost nothing."""
+    def chunk(kind: bytes, data: bytes) -> bytes:
+        return struct.pack(">I", len(data)) + kind + data + struct.pack(">I", zlib.crc32(kind + data))
+    packer = zlib.compressobj(1)
+    row = b"\x00" + b"\xff" * width
+    body = b"".join(packer.compress(row) for _ in range(height)) + packer.flush()
+    return (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", struct.pack(">IIBBBBB", width, height, 8, 0, 0, 0, 0))
+            + chunk(b"IDAT", body) + chunk(b"IEND", b""))
+
+
+def test_a_page_image_and_a_crop_that_are_decompression_bombs(path: Path) -> None:
+    bomb = _png_bomb(12_000, 12_000)  # 144 million pixels in a fraction of a megabyte
+    assert len(bomb) < 1_000_000
+    _alter(path, "UPDATE page_images SET png = ?",
+           "UPDATE digits SET crop_png = ? WHERE state IN ('corrected', 'confirmed')", params=(bomb,))
+    tracemalloc.start()
+    try:
+        with Batch.open(path) as batch:
+            with pytest.raises(BatchFileError, match="declares 12000 x 12000 pixels") as info:
+                batch.page_image(1)
+            assert "hostile.inkcount" in str(info.value)
+            digit = batch.rows("SELECT id FROM digits WHERE state IN ('corrected', 'confirmed')")[0][0]
+            with pytest.raises(BatchFileError, match="declares 12000 x 12000 pixels"):
+                batch.digit_crop(digit)
+            with pytest.raises(BatchFileError, match="declares 12000 x 12000 pixels"):
+                labelled_samples(batch)
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert peak < 50_000_000
+
+
+def test_a_stored_template_nested_deep(path: Path) -> None:
+    _alter(path, "INSERT INTO templates (name, version, json, added) VALUES ('t', 1, ?, 'now')",
+           params=("[" * 100_000 + "]" * 100_000,))
+    with Batch.open(path, read_only=True) as batch:
+        with pytest.raises(BatchFileError, match="a stored template is damaged .*nests deeper"):
+            batch.templates()
+
+
+def test_a_scan_name_that_is_not_utf8_is_stored_and_shown(tmp_path: Path, monkeypatch, capsys) -> None:
+    folder = tmp_path / "scans"
+    folder.mkdir()
+    names = [os.fsdecode(b"caf\xe9.png"), os.fsdecode(b"caf\xe8.png")]  # two Latin-1 names
+    scans = []
+    for i, name in enumerate(names):
+        try:
+            (folder / name).write_bytes(f"scan {i}".encode())
+        except (OSError, UnicodeEncodeError):
+            pytest.skip("this file system refuses file names that are not UTF-8")
+        scans.append(folder / name)
+    monkeypatch.setattr(ingest_module, "read_scans", fake_reader(1))
+    path = tmp_path / "hostile.inkcount"
+    with Batch.create(path) as batch:
+        ingest_scans(batch, scans, model=FakeModel())
+        shown = [Path(f.path).name for f in stored_files(batch)]
+        assert shown == ["caf\\xe9.png", "caf\\xe8.png"]  # visible, and the two stay apart
+        again = ingest_scans(batch, scans, model=FakeModel())  # known by content: not read twice
+        assert again.files_added == 0 and again.pages_read == 0
+    assert run("status", str(path)) == 0
+    assert "2 file(s)" in capsys.readouterr().out
+    with Batch.open(path, read_only=True) as batch:
+        assert batch.integrity_check() == []
