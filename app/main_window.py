@@ -7,6 +7,14 @@ what the clerk asks for goes to the :class:`app.controller.BatchController`
 the views. Every review action is committed to the batch file by
 :mod:`recognizer.review` the moment it is made. The window keeps only its
 layout and the place in the review (:mod:`app.settings`).
+
+A batch always opens on the check panel (F2). The page list keeps following
+the field shown, so the list, the page image and the check panel show the
+same page whatever changed (strictness, a new model, pages read).
+
+This module is longer than 600 lines: it is the one place where every menu,
+shortcut and route between the views, the controller and the dialogs is
+written down, kept together so the window's map reads in one file.
 """
 
 from __future__ import annotations
@@ -17,13 +25,24 @@ from pathlib import Path
 
 from PySide6.QtCore import QByteArray, Qt, QTimer, Signal
 from PySide6.QtGui import QAction, QKeySequence
-from PySide6.QtWidgets import QMainWindow, QMessageBox, QSplitter, QStackedWidget, QTabWidget
+from PySide6.QtWidgets import (
+    QLabel,
+    QMainWindow,
+    QInputDialog,
+    QMessageBox,
+    QSplitter,
+    QStackedWidget,
+    QTabWidget,
+    QVBoxLayout,
+    QWidget,
+)
 
 from recognizer.batch import SUFFIX, Batch, Change
 from recognizer.batch.queries import labelled_count, page_fields, pages_of_fields
 from recognizer.digits.model import DigitModel
 from recognizer.digits.retrain import RetrainSettings
 from recognizer.forms.template_file import TemplateFileError, load_template
+from recognizer.review import ReviewError, audit_status, draw_audit, fields_needed, residual_figures, zero_error_bound
 
 from .controller import BatchController
 from .dialogs import files
@@ -33,8 +52,8 @@ from .dialogs.strictness import StrictnessDialog
 from .look import CAUTION
 from .settings import WindowSettings
 from .views.model_panel import LEARN_TIP, RETRAIN_TIP, ModelPanel
-from .views.page_list import PageList
-from .views.page_view import PageView
+from .views.page_list import PageList, legend_html
+from .views.page_view import ZOOM_HELP, PageView
 from .views.review_panel import KEY_HELP, ReviewPanel
 from .views.sort_wall import SortWall
 from .views.start_page import StartPage
@@ -117,6 +136,21 @@ class MainWindow(QMainWindow):
 
         self.pages = PageList()
         self.pages.page_chosen.connect(self._show_page)
+        self.legend = QLabel(legend_html())
+        self.legend.setWordWrap(True)
+        self.legend.setAccessibleName("What the marks mean")
+        self.legend.setToolTip("The marks and colours of pages, fields and boxes")
+        self.page_detail = QLabel("")
+        self.page_detail.setWordWrap(True)
+        self.page_detail.setAccessibleName("Page chosen")
+        self.page_detail.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
+        self.pages.current_described.connect(self.page_detail.setText)
+        self.pages_box = QWidget()
+        box = QVBoxLayout(self.pages_box)
+        box.setContentsMargins(0, 0, 0, 0)
+        box.addWidget(self.legend)
+        box.addWidget(self.pages, 1)
+        box.addWidget(self.page_detail)
         self.page_view = PageView()
         self.page_view.field_clicked.connect(self._field_clicked)
         self.review = ReviewPanel()
@@ -126,6 +160,7 @@ class MainWindow(QMainWindow):
         self.wall = SortWall()
         self.wall.guard = self.controller.guard
         self.wall.message.connect(self.say)
+        self.wall.crop_selected.connect(self._crop_selected)
         self.model_panel = ModelPanel()
         self.model_panel.learning_toggled.connect(self.set_learning)
         self.model_panel.stop_learning.connect(self.stop_learning)
@@ -136,14 +171,21 @@ class MainWindow(QMainWindow):
         self.tabs.setAccessibleName("Checking views")
         self.tabs.currentChanged.connect(self._tab_changed)
 
+        # Stable widths: what a page or a field shows never changes them (the check panel's boxes
+        # scale down to fit instead of widening it); a window made wider or narrower shares the
+        # difference 1 : 3 : 2, the page image taking most.
         self.splitter = QSplitter(Qt.Orientation.Horizontal)
-        self.splitter.addWidget(self.pages)
+        self.splitter.addWidget(self.pages_box)
         self.splitter.addWidget(self.page_view)
         self.splitter.addWidget(self.tabs)
+        self.splitter.setChildrenCollapsible(False)
+        self.pages_box.setMinimumWidth(190)
+        self.page_view.setMinimumWidth(220)
+        self.tabs.setMinimumWidth(340)
         self.splitter.setStretchFactor(0, 1)
         self.splitter.setStretchFactor(1, 3)
-        self.splitter.setStretchFactor(2, 3)
-        self.splitter.setSizes([300, 520, 580])
+        self.splitter.setStretchFactor(2, 2)
+        self.splitter.setSizes(self.default_sizes(1400))
         self.stack.addWidget(self.splitter)
         self.setTabOrder(self.pages, self.page_view)
         self.setTabOrder(self.page_view, self.tabs)
@@ -154,6 +196,13 @@ class MainWindow(QMainWindow):
         self.progress, self.cancel_button = self.status.progress, self.status.cancel_button
         self.cancel_button.clicked.connect(self.cancel_reading)
         self.resize(1400, 860)
+
+    @staticmethod
+    def default_sizes(width: int) -> list[int]:
+        """The panels' widths for a window ``width`` wide: list, page image, check panel."""
+        pages = max(180, min(280, width * 17 // 100))
+        panel = max(360, min(520, width * 32 // 100))
+        return [pages, max(220, width - pages - panel), panel]
 
     def _action(self, menu, text: str, slot, shortcut: str | None = None, tip: str | None = None) -> QAction:
         action = QAction(text, self)
@@ -197,8 +246,14 @@ class MainWindow(QMainWindow):
         self._action(check, "Page by page order", lambda: self.set_order("page"), "Ctrl+Shift+P")
         self._action(check, "Least sure first", lambda: self.set_order("confidence"), "Ctrl+Shift+L")
         check.addSeparator()
-        self.strict_action = self._action(check, "How &strict…", self.strictness_dialog, "Ctrl+T",
-                                          "Set the share of wrong digits you accept, and see how many digits that sends to you")
+        self.strict_action = self._action(check, "How many values to chec&k…", self.strictness_dialog, "Ctrl+T",
+                                          "Set the share of wrong digits you accept, and see how many digits that "
+                                          "sends to you (Ctrl+T)")
+        self.spot_action = self._action(check, "Sp&ot check…", self.spot_check, "Ctrl+Shift+K",
+                                        "Look at a random sample of the values accepted without a person, to "
+                                        "say how many wrong values are left (Ctrl+Shift+K)")
+        self.leave_spot_action = self._action(check, "Back to the fields to check", self.review.leave_spot_check,
+                                              tip="Leave the spot check; the fields not answered stay drawn")
 
         view = bar.addMenu("&View")
         self._action(view, "Check fields", lambda: self.show_tab(TAB_CHECK), "F2")
@@ -206,9 +261,13 @@ class MainWindow(QMainWindow):
         self._action(view, "Model", lambda: self.show_tab(TAB_MODEL), "F4")
         self._action(view, "Page list", lambda: self.pages.setFocus(), "F6")
         view.addSeparator()
-        self._action(view, "Zoom to &fit", self.page_view.zoom_to_fit, "Ctrl+0")
-        self._action(view, "Zoom &in", lambda: self.page_view.zoom_by(1.25), "Ctrl+=")
-        self._action(view, "Zoom &out", lambda: self.page_view.zoom_by(0.8), "Ctrl+-")
+        self._action(view, "Page to the &width of its view", self.page_view.zoom_to_fit, "Ctrl+0",
+                     "Fit the page to the width of its view (Ctrl+0)")
+        zoom_in = self._action(view, "Zoom &in", lambda: self.page_view.zoom_by(1.25), "Ctrl++",
+                               "Zoom in on the page (Ctrl++ or Ctrl+wheel)")
+        zoom_in.setShortcuts([QKeySequence("Ctrl++"), QKeySequence("Ctrl+=")])
+        self._action(view, "Zoom &out", lambda: self.page_view.zoom_by(0.8), "Ctrl+-",
+                     "Zoom out of the page (Ctrl+- or Ctrl+wheel)")
 
         model = bar.addMenu("&Model")
         self.retrain_action = self._action(model, "&Retrain from this batch's corrections…", self.retrain,
@@ -226,13 +285,15 @@ class MainWindow(QMainWindow):
 
         help_menu = bar.addMenu("&Help")
         self._action(help_menu, "&Keys", self._show_keys, "F1")
+        self._action(help_menu, "What the &marks mean", lambda: QMessageBox.information(
+            self, "What the marks mean", legend_html(lines=True)))
         self._action(help_menu, "About the &values", lambda: QMessageBox.information(self, "About the values", CAUTION))
         self._cancel_shortcut = QAction(self)
         self._cancel_shortcut.setShortcut(QKeySequence("Esc"))
         self._cancel_shortcut.setShortcutContext(Qt.ShortcutContext.WindowShortcut)
         self._cancel_shortcut.triggered.connect(lambda: self.cancel_reading() if self.reading else None)
         self._batch_actions = [self.export_action, self.close_action, self.strict_action, self.retrain_action,
-                               self.learn_action]
+                               self.spot_action, self.leave_spot_action, self.learn_action]
         self._update_enabled()
         self._fill_recent()
 
@@ -254,8 +315,11 @@ class MainWindow(QMainWindow):
         c.learning_done.connect(self._learning_done)
 
     def _show_keys(self) -> None:
-        QMessageBox.information(self, "Keys", KEY_HELP.replace(" · ", "\n") + "\n\nSort wall:\n"
-                                + self.wall.toolTip().replace(" · ", "\n"))
+        QMessageBox.information(self, "Keys", "Check fields (F2):\n" + KEY_HELP.replace(" · ", "\n")
+                                + "\n\nPage image:\n" + ZOOM_HELP.replace(" · ", "\n")
+                                + "\n\nSort wall (F3):\n" + self.wall.toolTip().replace(" · ", "\n")
+                                + "\n\nF2 check fields · F3 sort wall · F4 model · F6 page list · "
+                                "Ctrl+T how many values to check · Ctrl+Shift+K spot check · Ctrl+E export".replace(" · ", "\n"))
 
     def _update_enabled(self) -> None:
         for action in self._batch_actions:
@@ -403,9 +467,10 @@ class MainWindow(QMainWindow):
         self.review.set_batch(batch, self.cache, order=position.get("order", self.settings.get("order")),
                               field_id=position.get("field_id"))
         self.wall.set_batch(batch, self.cache)
-        self._show_model()
+        self._show_model(with_samples=True)
         self._update_enabled()
         self._restore_splitter()
+        self.tabs.setCurrentIndex(TAB_CHECK)
         if self.review.view is None:
             self.pages.select_first()
         self.review.setFocus()
@@ -431,6 +496,7 @@ class MainWindow(QMainWindow):
     def _reading_started(self, _files: int) -> None:
         self.status.reading_started()
         self.addAction(self._cancel_shortcut)
+        self._show_model()
 
     def _on_progress(self, done: int, total: int, text: str) -> None:
         self.status.reading_progress(done, total)
@@ -450,8 +516,11 @@ class MainWindow(QMainWindow):
         elif change.kind == "flags":
             self.pages.fill()
             self._refresh_page_view()
-            if self.review.view is not None and self.review.view.page_id == self.page_view.page_id:
-                self.page_view.select_field(self.review.view.field_id)
+            view = self.review.view
+            if view is not None:  # the list and the image follow the check panel
+                self._show_page(view.page_id)
+                self.page_view.select_field(view.field_id)
+                self.pages.follow(view.page_id)
         else:
             pages = pages_of_fields(self.batch, change.field_ids or ())
             self.pages.update_pages(pages)
@@ -481,6 +550,12 @@ class MainWindow(QMainWindow):
         self.pages.follow(page_id)
         self._remember_position()
 
+    def _crop_selected(self, page_id: int, field_id: int, _box: int) -> None:
+        """The sort wall's current crop: its page, with its field picked out."""
+        self._show_page(page_id)
+        self.page_view.select_field(field_id)
+        self.pages.follow(page_id)
+
     def _field_clicked(self, field_id: int) -> None:
         self.show_tab(TAB_CHECK)
         self.review.show_field(field_id)
@@ -494,6 +569,9 @@ class MainWindow(QMainWindow):
 
     def show_tab(self, index: int) -> None:
         self.tabs.setCurrentIndex(index)
+        view = self.review.view
+        if index == TAB_CHECK and view is not None and self.page_view.page_id != view.page_id:
+            self._field_shown(view.field_id, view.page_id)  # the page of the field being checked
         (self.review if index == TAB_CHECK else self.tabs.currentWidget()).setFocus()
 
     def _tab_changed(self, index: int) -> None:
@@ -502,10 +580,10 @@ class MainWindow(QMainWindow):
         self.settings.set("tab", index)
         self._schedule_save()
 
-    def _show_model(self, *, with_samples: bool = False) -> None:
+    def _show_model(self, *, with_samples: bool = True) -> None:
         samples = labelled_count(self.batch) if with_samples and self.batch is not None else None
         settings = self.batch.settings if self.batch else None
-        self.model_panel.show_model(self.model, settings, samples)
+        self.model_panel.show_model(self.model, settings, samples, reading=self.reading)
         self._show_learning(settings, samples)
 
     def _show_learning(self, settings=None, checked: int | None = None, running: str | None = None) -> None:
@@ -556,7 +634,7 @@ class MainWindow(QMainWindow):
         if done is not None:
             self.say(done.in_words())
             if done.accepted:
-                self._show_model(with_samples=self.tabs.currentIndex() == TAB_MODEL)
+                self._show_model()
         self._show_learning()
 
     # ------------------------------------------------------------------ dialogs
@@ -566,8 +644,53 @@ class MainWindow(QMainWindow):
             return None
         dialog = StrictnessDialog(self.batch, self.model, self, guard=self.controller.guard)
         dialog.open()
-        dialog.accepted.connect(lambda: (self._show_model(), self.say("Strictness changed.")))
+        dialog.accepted.connect(lambda: (self._show_model(), self.say(
+            f"Changed how many values to check: {self.review.remaining:,} "
+            f"field{' is' if self.review.remaining == 1 else 's are'} to check now.")))
         return dialog
+
+    def spot_check(self) -> QInputDialog | None:
+        """Check > Spot check: go on with an unfinished spot check, or ask how many fields to draw."""
+        if self.batch is None:
+            return None
+        status = audit_status(self.batch)
+        if status is not None and not status.finished:
+            self.show_tab(TAB_CHECK)
+            self.review.start_spot_check()
+            self.say(f"Going on with the spot check drawn on {status.record.drawn_at}: "
+                     f"{len(status.open_ids)} of {status.drawn} left.")
+            return None
+        population = residual_figures(self.batch).unattended
+        if population == 0:
+            self.say("No value of this batch was accepted without a person: there is nothing to spot check.")
+            return None
+        dialog = QInputDialog(self)
+        dialog.setWindowTitle("Spot check")
+        dialog.setInputMode(QInputDialog.InputMode.IntInput)
+        dialog.setIntRange(1, population)
+        dialog.setIntValue(min(50, population))
+        dialog.setLabelText(
+            f"{population:,} values were accepted without a person. How many of them do you want to look at?\n"
+            "They are drawn at random, spread over the pages. If none of them is wrong, 50 show that at most "
+            f"{100 * zero_error_bound(50):.1f} % of the values accepted are wrong, {fields_needed(0.01):,} show "
+            "at most 1 % (95 % confidence).")
+        dialog.intValueSelected.connect(self.start_spot_check)
+        dialog.open()
+        return dialog
+
+    def start_spot_check(self, count: int) -> None:
+        """Draw ``count`` values accepted without a person and check them in the check panel."""
+        if self.batch is None:
+            return
+        try:
+            status = draw_audit(self.batch, count)
+        except ReviewError as exc:
+            self.show_problem("Spot check", str(exc))
+            return
+        self.show_tab(TAB_CHECK)
+        self.review.start_spot_check()
+        self.say(f"Drew {status.drawn} of the {status.record.population:,} values accepted without a person: "
+                 "Enter if a value is right, type the right one if not.")
 
     def retrain(self) -> RetrainDialog | None:
         """Model > Retrain: fine-tune the batch's model on its checked digits in a worker, then show the result."""
@@ -630,7 +753,6 @@ class MainWindow(QMainWindow):
         if geometry is not None:
             self.restoreGeometry(geometry)
         self._splitter_restored = False
-        self.tabs.setCurrentIndex(self.settings.get("tab"))
 
     def _restore_splitter(self) -> None:
         """The splitter's sizes, once it is on screen (sizes set while hidden do not hold)."""
@@ -640,6 +762,8 @@ class MainWindow(QMainWindow):
         state = _unb64(self.settings.get("splitter"))
         if state is not None:
             self.splitter.restoreState(state)
+        else:
+            self.splitter.setSizes(self.default_sizes(self.splitter.width() or self.width()))
 
     def save_settings(self) -> str | None:
         """Write the window settings now; report (and return) the reason if that fails."""

@@ -2,7 +2,8 @@
 
 ``python -m app.screenshots [OUT_DIR]`` reads the sample forms into a
 temporary batch, checks a few fields so that every state shows, and writes
-``docs/screenshots/``: the start page, the batch with its page view, the
+``docs/screenshots/``: the start page, the batch with its page view (also at
+1024 x 700, a small laptop screen), the
 check panel, the sort wall, the window after a round of learning during the
 batch, the model panel, the strictness dialog, the export dialog and the form
 template editor. The images are reduced to a 256-colour palette to stay small.
@@ -24,7 +25,9 @@ from PySide6.QtWidgets import QApplication, QWidget  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]
 SCANS = ROOT / "sample_forms" / "scans"
-SIZE = (1440, 880)
+SIZE = (1440, 900)
+#: A small laptop screen: nothing may be cut there either.
+SMALL = (1024, 700)
 #: An invented folder shown in the pictures instead of wherever they are rendered.
 _SHOWN_FOLDER = Path("/home/clerk/weigh-ins")
 
@@ -70,6 +73,9 @@ def render_all(out: Path) -> list[Path]:
         QTest.keyClick(panel, Qt.Key.Key_Return)          # corrected
         window.say("Saved.")
         written.append(_save(window, out / "batch_page_view.png"))
+        window.resize(*SMALL)
+        written.append(_save(window, out / "batch_page_view_1024.png"))
+        window.resize(*SIZE)
         QTest.keyClicks(panel, "0")  # typing in progress: the first box overwritten
         written.append(_save(window.tabs, out / "check_panel.png"))
         QTest.keyClick(panel, Qt.Key.Key_Escape)

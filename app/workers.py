@@ -40,7 +40,7 @@ from .batch_access import SwitchGuard
 
 from recognizer.batch import Batch
 from recognizer.digits.model import DigitModel
-from recognizer.digits.retrain import MIN_SAMPLES, RetrainSettings
+from recognizer.digits.retrain import MIN_SAMPLES, RetrainSettings, RetrainStopped
 from recognizer.ingest import ReadSettings, ingest_scans
 from recognizer.learning import (
     LEARNING_SETTINGS,
@@ -188,7 +188,9 @@ class RetrainWorker(Worker):
                 raise Refused(too_few_message(len(samples.labels)))
             try:
                 result = learn(self.model, samples, counts=counts, settings=self.settings, measure=True,
-                               progress=self.progress.emit)
+                               progress=self.progress.emit, should_stop=self.should_stop)
+            except RetrainStopped as exc:
+                raise Refused("Retraining stopped: nothing was written, and the batch keeps its model.") from exc
             except RuntimeError as exc:
                 raise Refused(f"Retraining needs the held-out check digits to measure the new model: {exc}.") from exc
         except ValueError as exc:  # the library's refusals (e.g. a model without replay digits)

@@ -1,6 +1,6 @@
 """The window's dialogs, one per module.
 
-* :mod:`~app.dialogs.strictness`: how strict to be (target share of wrong
+* :mod:`~app.dialogs.strictness`: how many values to check (target share of wrong
   digits or a confidence threshold), with a live count.
 * :mod:`~app.dialogs.export`: export the checked CSV.
 * :mod:`~app.dialogs.retrain`: retrain the model from the batch's corrections,

@@ -2,7 +2,9 @@
 
 The CSV is written by :func:`recognizer.review.export_checked`; fields still to
 check are listed in an ``unchecked_fields`` column so nobody takes them for
-checked values.
+checked values. The dialog says in one line what is known of the wrong values
+left (:func:`recognizer.review.residual_line`: the spot check's bound, or that
+it was not measured), as the statement written beside the CSV says it.
 """
 
 from __future__ import annotations
@@ -23,7 +25,7 @@ from PySide6.QtWidgets import (
 )
 
 from recognizer.batch import Batch
-from recognizer.review import TO_CHECK, ExportResult, export_checked, state_counts
+from recognizer.review import TO_CHECK, ExportResult, export_checked, residual_figures, residual_line, state_counts
 
 from ..look import caution_label
 
@@ -56,6 +58,12 @@ class ExportDialog(QDialog):
         layout.addLayout(form)
         self.audit = QCheckBox("Add &audit columns (state and lowest confidence of every field)")
         layout.addWidget(self.audit)
+        self.residual = QLabel(residual_line(residual_figures(batch)))
+        self.residual.setWordWrap(True)
+        self.residual.setAccessibleName("Wrong values left")
+        self.residual.setToolTip("Written in full beside the CSV, in <name>.residual.txt (Check > Spot check "
+                                 "measures it)")
+        layout.addWidget(self.residual)
         self.warning = QLabel()
         self.warning.setWordWrap(True)
         self.warning.setAccessibleName("Fields still to check")

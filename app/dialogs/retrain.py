@@ -6,9 +6,12 @@ before and after (the batch's held-back checked digits, the 5,000 held-out
 MNIST digits, how many digits it learned from). An accepted model can be
 saved and used for the batch (:class:`app.workers.RereadWorker`: the
 unchecked digits are read again; corrected and confirmed values stay). A
-refused model is explained and offers nothing to save. Retraining cannot be
-stopped half-way (the library has no stopping point), so the dialog cannot be
-closed while it runs; it is window-modal, so no review action lands in the
+refused model is explained and offers nothing to save. The dialog asks first
+(what it will do, how long it takes) and starts only on *Start*; while it
+retrains, *Stop* (or Esc, or closing the dialog) stops it within a moment
+(the library asks before every mini-batch) and nothing is written. Reading
+the digits again with a new model is short and is not stopped. It grows to show its words whole each time they
+change (a wrapped label does not make a shown dialog taller by itself); it is window-modal, so no review action lands in the
 middle of a re-read. Its workers are started by ``start_job`` (the window
 passes :meth:`app.controller.BatchController.start_job`, so the batch is not
 closed under them).
@@ -46,9 +49,9 @@ def result_in_words(result: RetrainResult) -> str:
         f"Learned from <b>{f['n_learned']:,}</b> digits a person corrected or confirmed in this batch; "
         f"<b>{f['n_held_back']:,}</b> more were held back to test it.",
         "<table cellspacing='6'><tr><th></th><th>before</th><th>after</th></tr>"
-        f"<tr><td>Right on this batch's held-back checked digits ({f['n_held_back']:,})</td>"
+        f"<tr><td>Accuracy on this batch's held-back checked digits ({f['n_held_back']:,})</td>"
         f"<td>{_pct(before['new_samples'])}</td><td><b>{_pct(after['new_samples'])}</b></td></tr>"
-        f"<tr><td>Right on {f['n_heldout']:,} handwritten digits it never saw (MNIST)</td>"
+        f"<tr><td>Accuracy on {f['n_heldout']:,} handwritten digits it never saw (MNIST)</td>"
         f"<td>{_pct(before['heldout'])}</td><td><b>{_pct(after['heldout'])}</b></td></tr></table>",
     ]
     if result.accepted:
@@ -122,18 +125,50 @@ class RetrainDialog(QDialog):
         self.use_button.setToolTip("Read this batch's unchecked digits again with the new model; "
                                    "corrected and confirmed values stay as they are")
         self.close_button = QPushButton("&Close")
-        for b, role in ((self.save_button, QDialogButtonBox.ButtonRole.ActionRole),
+        self.start_button = QPushButton("&Start")
+        self.start_button.setToolTip("Train a new model from the digits checked in this batch")
+        self.stop_button = QPushButton("S&top")
+        self.stop_button.setToolTip("Stop retraining; nothing is written and the batch keeps its model")
+        for b, role in ((self.start_button, QDialogButtonBox.ButtonRole.ActionRole),
+                        (self.stop_button, QDialogButtonBox.ButtonRole.ActionRole),
+                        (self.save_button, QDialogButtonBox.ButtonRole.ActionRole),
                         (self.use_button, QDialogButtonBox.ButtonRole.AcceptRole),
                         (self.close_button, QDialogButtonBox.ButtonRole.RejectRole)):
             buttons.addButton(b, role)
             b.setEnabled(False)
         self.save_button.hide()
         self.use_button.hide()
+        self.stop_button.hide()
+        self.start_button.setEnabled(True)
+        self.start_button.setDefault(True)
+        self.close_button.setEnabled(True)
+        self.start_button.clicked.connect(self.start)
+        self.stop_button.clicked.connect(self.stop)
         self.save_button.clicked.connect(lambda: self.save_model())
         self.use_button.clicked.connect(self.use_model)
         self.close_button.clicked.connect(self.reject)
         layout.addWidget(buttons)
-        self._start(batch, model, settings)
+        self._settings = settings
+        self._retraining: RetrainWorker | None = None
+        self.busy.hide()
+        self.text.setText(f"Train a new model from the digits people checked in <b>{Path(batch.path).name}</b>, so "
+                          "that it reads this office's handwriting better?<br><br>It takes a minute or two, and you "
+                          "can stop it at any time. Nothing in the batch changes until you choose to use the new "
+                          "model; it is used only if it reads at least as well as the one in use.")
+
+    def start(self) -> None:
+        """Start retraining (the *Start* button)."""
+        if self.running or self.result is not None:
+            return
+        self.start_button.hide()
+        self._start(self.batch, self.model, self._settings)
+
+    def stop(self) -> None:
+        """Stop a running retraining (the *Stop* button, Esc): nothing is written."""
+        if self._retraining is not None and self.running:
+            self._retraining.cancel()
+            self.stop_button.setEnabled(False)
+            self.step.setText("Stopping…")
 
     # ---- running
 
@@ -161,31 +196,50 @@ class RetrainDialog(QDialog):
         self._then()
 
     def _start(self, batch: Batch, model: DigitModel, settings: RetrainSettings) -> None:
-        self.text.setText(f"Retraining <b>{model.version}</b> on the digits checked in {Path(batch.path).name}. "
-                          "This takes a minute or so and <b>cannot be stopped half-way</b>; nothing in the batch "
-                          "changes until you choose to use the new model.")
+        self.text.setText(f"Training a new model from the digits checked in {Path(batch.path).name}. "
+                          "This takes a minute or two; <b>Stop</b> ends it and nothing is written.")
         worker = RetrainWorker(batch, model, settings)
+        self._retraining = worker
+        self.stop_button.show()
+        self.stop_button.setEnabled(True)
         worker.progress.connect(self.step.setText)
         worker.finished.connect(self._on_retrained)
         worker.failed.connect(self._on_failed)
         self._run(worker, self._retrain_ended)
 
+    def _fit(self) -> None:
+        """Grow (never beyond the screen) so the words are not cut off after they changed."""
+        layout = self.layout()
+        layout.activate()
+        width = max(self.width(), self.minimumWidth())
+        height = layout.totalHeightForWidth(width) if layout.hasHeightForWidth() else layout.sizeHint().height()
+        screen = self.screen().availableGeometry() if self.screen() is not None else None
+        if screen is not None:
+            height = min(height, screen.height() - 60)
+        self.setMinimumHeight(height)
+        self.resize(width, max(self.height(), height))
+
     def _on_failed(self, message: str) -> None:
         self.problem = message
         self.text.setText(message.replace("\n", "<br>"))
         self.step.clear()
+        self._fit()
 
     def _on_retrained(self, result: RetrainResult) -> None:
         self.result = result
         self.text.setText(result_in_words(result))
         self.step.setText(f"New model {result.model.version}, retrained in {result.figures.get('seconds', 0):.0f} s."
                           if result.accepted else "Nothing was written.")
+        self._fit()
 
     def _retrain_ended(self) -> None:
+        self._retraining = None
+        self.stop_button.hide()
         accepted = self.result is not None and self.result.accepted
         for b in (self.save_button, self.use_button):
             b.setVisible(accepted)
             b.setEnabled(accepted)
+        self._fit()
         self.retrain_done.emit(self.result)
 
     # ---- saving and using
@@ -228,6 +282,7 @@ class RetrainDialog(QDialog):
         self.summary = summary
         self.step.setText(f"This batch now uses {self.result.model.version}: {summary.digits:,} unchecked digits "
                           f"read again, {summary.changed:,} of them differently.")
+        self._fit()
 
     def _reread_ended(self) -> None:
         if self.summary is not None:
@@ -235,6 +290,9 @@ class RetrainDialog(QDialog):
 
     def reject(self) -> None:
         if self.running:
-            self.step.setText("Please wait: this cannot be stopped half-way.")
+            if self._retraining is not None:
+                self.stop()
+            else:
+                self.step.setText("Please wait: the unchecked digits are being read again (a few seconds).")
             return
         super().reject()

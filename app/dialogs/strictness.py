@@ -1,4 +1,4 @@
-"""How strict to be: the share of wrong digits accepted (or a confidence threshold), with a live count.
+"""How many values to check: the share of wrong digits accepted (or a confidence limit), with a live count.
 
 The count comes from :func:`recognizer.batch.queries.open_digits` (the digits
 no person has handled yet); Apply calls :func:`recognizer.review.set_target_error`
@@ -33,7 +33,7 @@ class StrictnessDialog(QDialog):
 
     def __init__(self, batch: Batch, model: DigitModel, parent=None, *, guard: SwitchGuard | None = None) -> None:
         super().__init__(parent)
-        self.setWindowTitle("How strict to be")
+        self.setWindowTitle("How many values to check")
         self.batch, self.model = batch, model
         self.guard = guard
         self._seen = -1 if guard is None or guard.busy else guard.generation
@@ -42,8 +42,8 @@ class StrictnessDialog(QDialog):
         self._open = open_digits(batch)
         self.now = self._open.to_check_now
         layout = QVBoxLayout(self)
-        self.by_target = QRadioButton("&Target: share of wrong digits among those not checked")
-        self.by_threshold = QRadioButton("&Confidence threshold: check every digit read less sure than")
+        self.by_target = QRadioButton("&Target: at most this share of wrong digits among those not checked")
+        self.by_threshold = QRadioButton("&Confidence limit: check every digit read less sure than")
         group = QButtonGroup(self)
         group.addButton(self.by_target)
         group.addButton(self.by_threshold)
@@ -59,7 +59,7 @@ class StrictnessDialog(QDialog):
         self.threshold.setDecimals(2)
         self.threshold.setSuffix(" % sure")
         self.threshold.setValue(100 * (settings.threshold if settings.threshold is not None else 0.999))
-        self.threshold.setAccessibleName("Confidence threshold")
+        self.threshold.setAccessibleName("Confidence limit")
         form = QFormLayout()
         form.addRow(self.by_target, self.target)
         form.addRow(self.by_threshold, self.threshold)
@@ -70,7 +70,7 @@ class StrictnessDialog(QDialog):
         f.setBold(True)
         self.preview.setFont(f)
         layout.addWidget(self.preview)
-        layout.addWidget(QLabel("Digits a person has already handled keep their values. Nothing is read again."))
+        layout.addWidget(QLabel("Digits a person has already checked keep their values. Nothing is read again."))
         buttons = QDialogButtonBox(QDialogButtonBox.StandardButton.Cancel)
         self.apply_button = buttons.addButton("&Apply", QDialogButtonBox.ButtonRole.AcceptRole)
         buttons.accepted.connect(self.apply)
@@ -96,8 +96,10 @@ class StrictnessDialog(QDialog):
         self.target.setEnabled(self.by_target.isChecked())
         self.threshold.setEnabled(self.by_threshold.isChecked())
         n = self.preview_count()
-        self.preview.setText(f"With this setting {n:,} of {len(self._open.predictions):,} digits go to a person "
-                             f"(now {self.now:,}); threshold {100 * self.chosen_threshold():.2f} % sure.")
+        total = len(self._open.predictions)
+        self.preview.setText(f"With this setting, {n:,} of the {total:,} digits nobody has checked yet go to a person "
+                             f"(now {self.now:,}): every digit read less than {100 * self.chosen_threshold():.2f} % "
+                             "sure.")
 
     def apply(self) -> None:
         if self.guard is None:

@@ -1,4 +1,4 @@
-"""Which model reads the batch, how good it was on digits it never saw, its
+"""Which model reads the batch, how accurate it was on digits it was not trained on, its
 accuracy–reject curve (drawn with QPainter), and learning during the batch
 (on or off, what it is doing, what the last round gained).
 
@@ -14,9 +14,11 @@ from PySide6.QtGui import QColor, QFont, QPainter, QPainterPath, QPen
 from PySide6.QtWidgets import (
     QCheckBox,
     QFormLayout,
+    QFrame,
     QHBoxLayout,
     QLabel,
     QPushButton,
+    QScrollArea,
     QSizePolicy,
     QVBoxLayout,
     QWidget,
@@ -59,13 +61,13 @@ def retraining_in_words(model: DigitModel) -> str:
     learning = model.metadata.get("learning")
     if learning:
         return (f"learned while checking {learning.get('batch', 'this batch')} (round {learning.get('round', '?')}), "
-                f"from {r['n_samples']:,} checked digits; right on held-back checked digits "
+                f"from {r['n_samples']:,} checked digits; accuracy on held-back checked digits "
                 f"{100 * r['before']['new_samples']:.1f} % → {100 * r['after']['new_samples']:.1f} %, "
                 f"on held-out digits {100 * r['before']['heldout']:.1f} % → {100 * r['after']['heldout']:.1f} %")
     files = ", ".join(b.get("file", "?") for b in r.get("batches", [])) or "batches"
     before, after = r["before"], r["after"]
     return (f"from {model.metadata.get('parent', '?')} on {r['n_learned']:,} checked digits of {files}; "
-            f"right on held-back checked digits {100 * before['new_samples']:.1f} % → "
+            f"accuracy on held-back checked digits {100 * before['new_samples']:.1f} % → "
             f"{100 * after['new_samples']:.1f} %, on held-out digits {100 * before['heldout']:.1f} % → "
             f"{100 * after['heldout']:.1f} %")
 
@@ -83,7 +85,7 @@ class RejectCurve(QWidget):
         super().__init__(parent)
         self.points: list[tuple[float, float]] = []
         self.target: float | None = None
-        self.setMinimumSize(320, 220)
+        self.setMinimumSize(300, 240)
         self.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Expanding)
         self.setAccessibleName("Accuracy against share checked by a person")
 
@@ -128,12 +130,12 @@ class RejectCurve(QWidget):
             pt = at(x, y_lo)
             p.drawText(QRectF(pt.x() - 30, plot.bottom() + 4, 60, 14), Qt.AlignmentFlag.AlignCenter, f"{100 * x:.0f} %")
         p.drawText(QRectF(plot.left(), plot.bottom() + 20, plot.width(), 16), Qt.AlignmentFlag.AlignCenter,
-                   "share of digits sent to a person")
+                   "share of digits checked by a person")
         p.save()
         p.translate(12, plot.center().y())
         p.rotate(-90)
         p.drawText(QRectF(-plot.height() / 2, -10, plot.height(), 16), Qt.AlignmentFlag.AlignCenter,
-                   "right among the rest")
+                   "accuracy of digits not checked")
         p.restore()
         if self.target is not None and 1 - self.target >= y_lo:
             p.setPen(QPen(QColor("#D55E00"), 1.5, Qt.PenStyle.DashLine))
@@ -167,7 +169,15 @@ class ModelPanel(QWidget):
 
     def __init__(self, parent=None) -> None:
         super().__init__(parent)
-        layout = QVBoxLayout(self)
+        outer = QVBoxLayout(self)
+        outer.setContentsMargins(0, 0, 0, 0)
+        scroll = QScrollArea()  # on a small screen the panel scrolls rather than cut its words
+        scroll.setWidgetResizable(True)
+        scroll.setFrameShape(QFrame.Shape.NoFrame)
+        inner = QWidget()
+        scroll.setWidget(inner)
+        outer.addWidget(scroll)
+        layout = QVBoxLayout(inner)
         learn_row = QHBoxLayout()
         self.learn_box = QCheckBox("&Learn from my corrections as I check")
         self.learn_box.setToolTip(LEARN_TIP)
@@ -184,6 +194,7 @@ class ModelPanel(QWidget):
         learn_row.addWidget(self.stop_button)
         layout.addLayout(learn_row)
         form = QFormLayout()
+        form.setRowWrapPolicy(QFormLayout.RowWrapPolicy.WrapLongRows)
         self.learning = QLabel("–")
         self.learning.setWordWrap(True)
         self.learning.setAccessibleName("Learning while you check")
@@ -191,6 +202,8 @@ class ModelPanel(QWidget):
         self.last_round.setWordWrap(True)
         self.last_round.setAccessibleName("Last learning round")
         self.name = QLabel("–")
+        self.name.setWordWrap(True)
+        self.name.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
         self.heldout = QLabel("–")
         self.heldout.setWordWrap(True)
         self.strictness = QLabel("–")
@@ -201,13 +214,16 @@ class ModelPanel(QWidget):
         self.retrained.setAccessibleName("Retrained")
         form.addRow("Model reading this batch:", self.name)
         form.addRow("Retrained:", self.retrained)
-        form.addRow("Right on digits it never saw:", self.heldout)
-        form.addRow("Strictness of this batch:", self.strictness)
+        form.addRow("Accuracy on digits it was not trained on:", self.heldout)
+        form.addRow("How many values to check:", self.strictness)
         form.addRow("Checked digits to learn from:", self.samples)
         form.addRow("Learning while you check:", self.learning)
         form.addRow("Last round of learning:", self.last_round)
         layout.addLayout(form)
-        layout.addWidget(QLabel("<b>Accuracy against the share of digits a person checks</b> (held-out digits)"))
+        heading = QLabel("<b>Accuracy of the digits not checked, against the share a person checks</b> "
+                         "(digits it was not trained on)")
+        heading.setWordWrap(True)
+        layout.addWidget(heading)
         self.curve = RejectCurve()
         layout.addWidget(self.curve, 1)
         self.retrain_button = QPushButton("Retrain from this batch's corrections…")
@@ -231,7 +247,10 @@ class ModelPanel(QWidget):
         last = settings.learning_last if settings is not None else None
         self.last_round.setText(LearningRound.from_json(last).in_full() if last else "none yet")
 
-    def show_model(self, model: DigitModel | None, settings: BatchSettings | None, samples: int | None) -> None:
+    def show_model(self, model: DigitModel | None, settings: BatchSettings | None, samples: int | None, *,
+                   reading: bool = False) -> None:
+        """Show ``model`` with the batch's ``settings`` and ``samples`` checked digits (None: not counted);
+        ``reading``: pages are being read now (the strictness is set once the first page is read)."""
         if model is None:
             self.name.setText("–")
             self.heldout.setText("–")
@@ -249,11 +268,14 @@ class ModelPanel(QWidget):
         else:
             self.heldout.setText("no held-out figures in the model file")
         if settings is not None and settings.threshold is not None:
-            how = (f"target {100 * settings.target_error:.2f} % wrong among digits not checked"
-                   if settings.threshold_source == "target" else "confidence threshold set by hand")
-            self.strictness.setText(f"{how}; digits below {100 * settings.threshold:.2f} % sure go to a person")
+            how = (f"at most {100 * settings.target_error:.2f} % wrong among the digits not checked"
+                   if settings.threshold_source == "target" else "a confidence limit set by hand")
+            self.strictness.setText(f"{how}: every digit read less than {100 * settings.threshold:.2f} % sure "
+                                    "goes to a person (Ctrl+T)")
+        elif reading:
+            self.strictness.setText("reading… (set when the first page has been read)")
         else:
-            self.strictness.setText("not set yet (every digit is checked)")
+            self.strictness.setText("not set yet: it is set when the first page is read")
         self.samples.setText("–" if samples is None else f"{samples:,}")
         self.retrain_button.setEnabled(settings is not None)
         self.curve.set_curve(reject_points(model), settings.target_error if settings else None)

@@ -1,14 +1,18 @@
 """The page image with every field outlined: colour and mark by review state.
 
-Wheel zooms around the pointer, dragging pans, a click on a field selects it
-(:attr:`PageView.field_clicked`), :meth:`PageView.zoom_to_fit` shows the
-whole page.
+The page is fitted to the width of its view (:meth:`PageView.zoom_to_fit`,
+Ctrl+0), so its digits are as large as the view allows; the field being
+checked is scrolled into view whenever it changes. The wheel scrolls, as in
+any document viewer; Ctrl+wheel zooms around the pointer, Ctrl++ and Ctrl+-
+zoom on the field being checked (the window's View menu). Dragging pans, a
+click on a field selects it (:attr:`PageView.field_clicked`). A zoom the clerk
+chose is kept from page to page (the same form, the same place) until Ctrl+0.
 """
 
 from __future__ import annotations
 
 from PySide6.QtCore import QPointF, QRectF, Qt, Signal
-from PySide6.QtGui import QBrush, QColor, QFont, QPainter, QPen, QPixmap
+from PySide6.QtGui import QBrush, QColor, QFont, QPainter, QPen, QPixmap, QTransform
 from PySide6.QtWidgets import (
     QGraphicsItem,
     QGraphicsPixmapItem,
@@ -20,7 +24,12 @@ from PySide6.QtWidgets import (
 
 from ..look import STATE_LINES, STATE_MARKS, STATE_WORDS, colour
 
-__all__ = ["PageView"]
+__all__ = ["PageView", "ZOOM_HELP"]
+
+#: The page image's keys, for the tooltip and the F1 help.
+ZOOM_HELP = ("Ctrl++ zoom in · Ctrl+- zoom out · Ctrl+0 page to the width of the view · Ctrl+wheel zoom · "
+             "wheel scroll · drag to move · click a field to check it")
+_MIN_SCALE, _MAX_SCALE = 0.05, 8.0
 
 
 class _FieldOutline(QGraphicsRectItem):
@@ -64,7 +73,7 @@ class PageView(QGraphicsView):
         self.setTransformationAnchor(QGraphicsView.ViewportAnchor.AnchorUnderMouse)
         self.setBackgroundBrush(QColor("#3a3a3a"))
         self.setAccessibleName("Page image")
-        self.setToolTip("Page image: wheel to zoom, drag to move, click a field to check it (Ctrl+0 fits the page)")
+        self.setToolTip("Page image: " + ZOOM_HELP)
         self._pixmap: QGraphicsPixmapItem | None = None
         self._outlines: dict[int, _FieldOutline] = {}
         self._selected: int | None = None
@@ -81,10 +90,16 @@ class PageView(QGraphicsView):
         self._outlines.clear()
         self._pixmap = None
         self.page_id = page_id
-        if image is None:
-            text = scene.addText("No image for this page." if page_id is not None else "")
+        if image is None:  # drawn at its own size, whatever the zoom of the page before
+            text = scene.addText("No image for this page: it could not be read (see the line under the page list)."
+                                 if page_id is not None else "")
+            font = QFont()
+            font.setPointSize(12)
+            text.setFont(font)
+            text.setTextWidth(max(200, self.viewport().width() - 40))
             text.setDefaultTextColor(QColor("white"))
-            scene.setSceneRect(text.boundingRect())
+            self.resetTransform()
+            scene.setSceneRect(text.boundingRect().adjusted(-20, -20, 20, 20))
             return
         self._pixmap = scene.addPixmap(QPixmap.fromImage(image))
         self._pixmap.setTransformationMode(Qt.TransformationMode.SmoothTransformation)
@@ -103,6 +118,8 @@ class PageView(QGraphicsView):
         scene.setSceneRect(QRectF(self._pixmap.boundingRect()).adjusted(-20, -20, 60, 20))
         if self._fit:
             self.zoom_to_fit()
+        else:
+            self._show_selected()
 
     def update_states(self, states: dict[int, str]) -> None:
         for field_id, state in states.items():
@@ -116,9 +133,15 @@ class PageView(QGraphicsView):
             outline = self._outlines.get(fid) if fid is not None else None
             if outline is not None:
                 outline.set_state(outline.state, fid == field_id)
-        outline = self._outlines.get(field_id) if field_id is not None else None
-        if centre and outline is not None and not self._fit:
-            self.ensureVisible(outline.rect(), 40, 40)
+        if centre:
+            self._show_selected()
+
+    def _show_selected(self) -> None:
+        """Scroll the field being checked into view (with a margin round it)."""
+        outline = self._outlines.get(self._selected) if self._selected is not None else None
+        if outline is not None:
+            view = self.viewport().rect()
+            self.ensureVisible(outline.rect(), min(80, view.width() // 4), min(120, view.height() // 4))
 
     def field_ids(self) -> list[int]:
         return list(self._outlines)
@@ -128,19 +151,44 @@ class PageView(QGraphicsView):
 
     # ---- zoom and pan
 
+    @property
+    def fitted(self) -> bool:
+        """Whether the page is kept fitted to the width of the view."""
+        return self._fit
+
+    def zoom(self) -> float:
+        """Screen pixels per page pixel."""
+        return self.transform().m11()
+
     def zoom_to_fit(self) -> None:
+        """Fit the page to the width of the view (Ctrl+0); the field being checked stays in view."""
         self._fit = True
         if self._pixmap is not None:
-            self.fitInView(self.scene().sceneRect(), Qt.AspectRatioMode.KeepAspectRatio)
+            width = self.scene().sceneRect().width()
+            scale = (self.viewport().width() - 2) / width if width > 0 else 1.0
+            self.setTransform(QTransform.fromScale(scale, scale))
+            self._show_selected()
 
-    def zoom_by(self, factor: float) -> None:
+    def zoom_by(self, factor: float, *, at_pointer: bool = False) -> None:
+        """Zoom in (factor > 1) or out, on the field being checked (or under the pointer)."""
+        if self._pixmap is None:
+            return
+        scale = max(_MIN_SCALE, min(_MAX_SCALE, self.transform().m11() * factor))
         self._fit = False
-        scale = self.transform().m11() * factor
-        if 0.05 <= scale <= 8:
-            self.scale(factor, factor)
+        anchor = self.transformationAnchor()
+        if not at_pointer:
+            self.setTransformationAnchor(QGraphicsView.ViewportAnchor.AnchorViewCenter)
+        self.setTransform(QTransform.fromScale(scale, scale))
+        self.setTransformationAnchor(anchor)
+        if not at_pointer:
+            self._show_selected()
 
     def wheelEvent(self, event) -> None:  # noqa: N802 (Qt name)
-        self.zoom_by(1.25 if event.angleDelta().y() > 0 else 0.8)
+        if event.modifiers() & Qt.KeyboardModifier.ControlModifier:
+            self.zoom_by(1.25 if event.angleDelta().y() > 0 else 0.8, at_pointer=True)
+            event.accept()
+        else:
+            super().wheelEvent(event)
 
     def resizeEvent(self, event) -> None:  # noqa: N802
         super().resizeEvent(event)

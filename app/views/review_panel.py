@@ -9,13 +9,20 @@ Keys (the panel has the focus)::
     0-9         overwrite the box under the cursor and move on (the first key
                 replaces the value read in that box)
     Delete      "no digit in this box"
-    Backspace   step back one box, restoring what was there
-    Left/Right  move the cursor without changing anything
+    Backspace   back to the previous box, restoring what was there
+    Left/Right  move the cursor without changing anything (Home/End: first/last box)
     Enter       save (confirm as it stands, or the value typed) and go to the next field
     Ctrl+U, *   the field cannot be read
     Ctrl+Z      undo the last action and go back to that field
     PgDn/PgUp   next / previous field without saving
     Esc         forget what was typed
+
+The cursor starts on the first box the reader was unsure of (if none, the
+first written box), so typing the one wrong digit replaces that digit. The
+boxes scale down to fit the panel's width instead of widening it. Enter on a
+field a person already handled (shown again from the page, or restored on
+reopening) writes nothing and goes on; a restored place that is done goes on
+to the next field still to check.
 
 Every action goes through :mod:`recognizer.review` and is committed at once.
 The next fields' crops and page strips are prepared while the clerk looks at
@@ -28,6 +35,17 @@ is drawn again and the next Enter only says so (look again, then Enter).
 Actions are committed inside the window's :class:`app.batch_access.SwitchGuard`
 (``guard``): while a switch is under way nothing is saved, and a field
 read again since it was drawn is drawn again instead of being saved.
+
+Spot check (:meth:`ReviewPanel.start_spot_check`): the panel walks the
+latest spot check's drawn fields instead (:func:`recognizer.review.audit_status`),
+titled "Spot check: 40 of 50 left", each field marked as a spot check. The
+keys are the same: Enter says the value accepted is right, typing corrects
+it (which fixes the value and counts as an error found). When every drawn
+field is answered the panel says what the spot check found and goes back to
+the fields to check.
+
+This module is longer than 600 lines: the panel's keys, drawing, queue
+place and guarded actions share one field-shown state and are kept together.
 """
 
 from __future__ import annotations
@@ -49,28 +67,37 @@ from PySide6.QtWidgets import (
 )
 
 from recognizer.batch import Batch, Change
-from recognizer.batch.queries import FieldView, field_states, load_field
+from recognizer.batch.queries import FieldView, field_states, load_field, page_summaries
 from recognizer.review import (
+    CONFIRMED,
+    CORRECTED,
     TO_CHECK,
+    UNREADABLE,
     ReviewError,
     ReviewItem,
     ReviewQueue,
+    audit_status,
     confirm,
     mark_unreadable,
+    residual_figures,
+    residual_line,
     set_field,
     undo,
 )
 from recognizer.states import NOT_A_DIGIT_MARK, reasons_in_words
 
 from ..batch_access import ImageCache, SwitchGuard
-from ..look import STATE_MARKS, STATE_WORDS, caution_label
+from ..look import STATE_MARKS, STATE_WORDS
 
 __all__ = ["ReviewPanel", "BoxTile", "ORDER_CHOICES", "KEY_HELP"]
 
 #: Review orders offered, with their words.
 ORDER_CHOICES = (("page", "Page by page"), ("confidence", "Least sure first"))
-KEY_HELP = ("Type digits to overwrite · Enter save and next · Del no digit · Backspace step back · "
-            "Ctrl+U or * unreadable · Ctrl+Z undo · PgDn/PgUp skip")
+KEY_HELP = ("0-9: replace the digit in the blue box · ←/→, Home/End: move the blue box · Enter: save and go to the next field · "
+            "Delete: no digit in this box · Backspace: previous box · Ctrl+U or *: field unreadable · "
+            "Ctrl+Z: undo · PgDn/PgUp: next/previous field without saving · Esc: forget what you typed")
+#: States a person set: Enter on such a field writes nothing again.
+_HANDLED = (CONFIRMED, CORRECTED, UNREADABLE)
 _PREFETCH = 4
 _LOW = QColor("#D55E00")
 _GOOD = QColor("#009E73")
@@ -78,11 +105,29 @@ _CURSOR = QColor("#0072B2")
 #: Said when learning changed the reading of the field shown.
 CHANGED_WORDS = ("Learning from your corrections changed the reading of this field: look again before saving "
                  "(what you typed is kept).")
+#: Said over a field of a spot check.
+SPOT_WORDS = ("<b>Spot check</b>: this value was accepted without a person. Enter if it is right; "
+              "type the right value if it is not.")
 #: Said when an action waits for a model switch to end.
 WAIT_WORDS = ("One moment: the unchecked digits are being read again with what was learned from your "
               "corrections; this is saved as soon as that ends (any other key: not saved).")
 #: Said when Enter meets a field whose reading changed since the clerk last looked.
 SAVE_AGAIN_WORDS = "This field's reading changed (learning); it is shown as it reads now. Enter again saves it."
+
+
+def _typing_slots(view: FieldView) -> list:
+    """The boxes the clerk types into: the written ones (and those a person gave a digit); all of them
+    for a field read as empty, so that a value the reader missed can be typed (a spot check draws such fields)."""
+    return view.slots or list(view.digits)
+
+
+def _first_cursor(view: FieldView) -> int:
+    """Where typing starts: the first box the reader was unsure of, else the first written box, else 0."""
+    slots = _typing_slots(view)
+    for k, d in enumerate(slots):
+        if d.state == TO_CHECK:
+            return k
+    return next((k for k, d in enumerate(slots) if not d.blank), 0)
 
 
 def _readings(view: FieldView) -> tuple:
@@ -94,6 +139,8 @@ class BoxTile(QWidget):
     """One box of the field: crop, value and confidence bar, painted."""
 
     SIZE = QSize(86, 150)
+    #: The smallest crop side when many boxes share the panel's width.
+    MIN_SIDE = 40
 
     def __init__(self, parent=None) -> None:
         super().__init__(parent)
@@ -105,6 +152,12 @@ class BoxTile(QWidget):
         self.flagged = False
         self.blank = False
         self.confidence: float | None = None
+
+    def set_side(self, side: int) -> None:
+        """Make the crop ``side`` pixels wide (the value and bar keep their height under it)."""
+        side = max(self.MIN_SIDE, min(self.SIZE.width(), side))
+        if side != self.width():
+            self.setFixedSize(side, side + self.SIZE.height() - self.SIZE.width())
 
     def paintEvent(self, event) -> None:  # noqa: N802 (Qt name)
         p = QPainter(self)
@@ -132,7 +185,7 @@ class BoxTile(QWidget):
             p.setFont(f)
             p.drawText(QRectF(crop_rect.right() - 16, crop_rect.top() + 1, 14, 16), Qt.AlignmentFlag.AlignCenter, "?")
         f = QFont()
-        f.setPixelSize(30)
+        f.setPixelSize(30 if w >= 60 else 22)
         f.setBold(self.typed)
         p.setFont(f)
         p.setPen(_CURSOR if self.typed else self.palette().text().color())
@@ -145,11 +198,12 @@ class BoxTile(QWidget):
             p.drawRect(bar)
             p.fillRect(QRectF(bar.left(), bar.top(), bar.width() * max(0.0, min(1.0, self.confidence)), bar.height()),
                        _LOW if self.flagged else _GOOD)
-            f.setPixelSize(11)
+            f.setPixelSize(11 if w >= 70 else 9)
             f.setBold(False)
             p.setFont(f)
             p.setPen(self.palette().text().color())
-            p.drawText(QRectF(0, w + 48, w, 14), Qt.AlignmentFlag.AlignCenter, f"sure {100 * self.confidence:.1f} %")
+            words = f"sure {100 * self.confidence:.1f} %" if w >= 70 else f"{100 * self.confidence:.0f} %"
+            p.drawText(QRectF(0, w + 48, w, 14), Qt.AlignmentFlag.AlignCenter, words)
         p.end()
 
 
@@ -200,6 +254,8 @@ class ReviewPanel(QFrame):
         #: Set by the window: keeps actions away from a model switch.
         self.guard: SwitchGuard | None = None
         self._seen = 0
+        #: Walking a spot check's drawn fields instead of the fields to check.
+        self.spot = False
         self._look_again = False
         self._pending = None
         self._retry = QTimer(self)
@@ -218,6 +274,7 @@ class ReviewPanel(QFrame):
         f.setBold(True)
         f.setPointSize(f.pointSize() + 2)
         self.counter.setFont(f)
+        self.counter.setWordWrap(True)
         top.addWidget(self.counter, 1)
         top.addWidget(QLabel("Order:"))
         self.order_box = QComboBox()
@@ -239,11 +296,14 @@ class ReviewPanel(QFrame):
         self.strip.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Preferred)
         self.strip.setAccessibleName("The page around this field")
         layout.addWidget(self.strip)
-        self.tiles_row = QHBoxLayout()
+        self.tiles_box = QWidget()  # its width follows the panel's, never the other way round
+        self.tiles_box.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Fixed)
+        self.tiles_row = QHBoxLayout(self.tiles_box)
+        self.tiles_row.setContentsMargins(0, 0, 0, 0)
         self.tiles_row.setSpacing(6)
         self.tiles_row.addStretch(1)
         self.tiles_row.addStretch(1)
-        layout.addLayout(self.tiles_row)
+        layout.addWidget(self.tiles_box)
         self.tiles: list[BoxTile] = []
         self.value_label = QLabel("")
         self.value_label.setAlignment(Qt.AlignmentFlag.AlignCenter)
@@ -252,9 +312,10 @@ class ReviewPanel(QFrame):
         keys = QLabel(KEY_HELP)
         keys.setWordWrap(True)
         keys.setStyleSheet("color: #505050;")
+        keys.setAccessibleName("Keys")
+        self.keys = keys
         layout.addWidget(keys)
         layout.addStretch(1)
-        layout.addWidget(caution_label())
 
     # ---- batch and queue
 
@@ -262,6 +323,7 @@ class ReviewPanel(QFrame):
                   field_id: int | None = None) -> None:
         """Follow ``batch``; start at ``field_id`` (restored place) or the first field to check."""
         self.batch, self.cache = batch, cache
+        self.spot = False
         self._strips.clear()
         self.order = order
         self.order_box.blockSignals(True)
@@ -272,10 +334,24 @@ class ReviewPanel(QFrame):
         self.reload_queue()
         if batch is None:
             self._show(None)
-        elif field_id is not None and field_states(batch, [field_id]):
+        elif field_id is not None and field_states(batch, [field_id]).get(field_id) == TO_CHECK:
             self.show_field(field_id)
+        elif field_id is not None and field_states(batch, [field_id]):
+            self.index = self._index_before(field_id)  # done meanwhile: go on from where it was
+            self.next_field()
         else:
             self.next_field(from_start=True)
+
+    def _index_before(self, field_id: int) -> int:
+        """By page, the index of the last field to check before ``field_id`` (any state); otherwise -1."""
+        if self.order != "page" or not self.items:
+            return -1
+        rank = {(s.file, s.page): k for k, s in enumerate(page_summaries(self.batch))}
+        done = load_field(self.batch, field_id)
+        here = (rank.get((done.file, done.page), -1), done.position)
+        before = [i for i, it in enumerate(self.items)
+                  if (rank.get((it.file, it.page), -1), it.sort_key[2]) < here]
+        return before[-1] if before else -1
 
     def reload_queue(self) -> None:
         """Read the review queue again (after reading pages, a change of strictness or a new model).
@@ -284,8 +360,14 @@ class ReviewPanel(QFrame):
         to check, the next field is the one that came after it.
         """
         old_items, old_index = self.items, self.index
+        status = audit_status(self.batch) if self.spot and self.batch is not None else None
+        self.spot = status is not None
         if self.batch is None:
             self.items, self._item_index, self._open = [], {}, set()
+        elif status is not None:
+            self.items = status.items()
+            self._item_index = {it.field_id: i for i, it in enumerate(self.items)}
+            self._open = set(status.open_ids)
         else:
             self.items = ReviewQueue(self.batch, order=self.order).items()
             self._item_index = {it.field_id: i for i, it in enumerate(self.items)}
@@ -311,7 +393,30 @@ class ReviewPanel(QFrame):
                 return self._item_index[item.field_id]
         return -1
 
+    def start_spot_check(self) -> None:
+        """Walk the latest spot check's drawn fields not answered yet (drawn with :func:`recognizer.review.draw_audit`)."""
+        if self.batch is None or audit_status(self.batch) is None:
+            return
+        self.spot = True
+        self.view, self.index = None, -1
+        self.reload_queue()
+        self.next_field(from_start=True)
+        self.setFocus()
+
+    def leave_spot_check(self, words: str | None = None) -> None:
+        """Back to the fields to check (saying ``words``, if given)."""
+        if not self.spot:
+            return
+        self.spot = False
+        self.view, self.index = None, -1
+        self.reload_queue()
+        if words:
+            self.message.emit(words)
+        self.next_field(from_start=True)
+
     def set_order(self, order: str) -> None:
+        if self.spot:
+            self.leave_spot_check()
         if order == self.order or self.batch is None:
             self.order = order
             return
@@ -328,12 +433,20 @@ class ReviewPanel(QFrame):
 
     def _update_counter(self) -> None:
         n = self.remaining
+        if self.spot:
+            self.counter.setText(f"Spot check: {n} of {len(self.items)} left")
+            return
         self.counter.setText("Nothing left to check" if n == 0 else f"{n} field{'s' if n != 1 else ''} left to check")
         self.remaining_changed.emit(n)
 
     def on_change(self, change: Change) -> None:
         """Follow a committed change (from this panel, the sort wall or the reading worker)."""
         if self.batch is None:
+            return
+        if self.spot:  # the drawn fields answered are those a person acted on since the draw
+            self.reload_queue()
+            if self.view is not None and self.view.field_id in change.field_ids and not self.edit.touched:
+                self._show(load_field(self.batch, self.view.field_id), seen=self._generation())
             return
         if change.kind in ("flags", "page"):
             self.reload_queue()
@@ -366,6 +479,9 @@ class ReviewPanel(QFrame):
         if self.batch is None:
             return
         n = len(self.items)
+        if self.spot and not self._open:
+            self.leave_spot_check("Spot check done. " + residual_line(residual_figures(self.batch)))
+            return
         if not self._open or n == 0:
             seen = self._generation()
             self._show(None if self.view is None or self.view.field_id in self._open else
@@ -406,9 +522,9 @@ class ReviewPanel(QFrame):
         if view is None or self.view is None or view.field_id != self.view.field_id:
             self._drop_pending()
         self.view = view
-        self.edit = _Edit([None] * (len(view.slots) if view else 0))
+        self.edit = _Edit([None] * (len(_typing_slots(view)) if view else 0))
         if view is not None:
-            self.edit.cursor = 0
+            self.edit.cursor = _first_cursor(view)
         if seen is not None:
             self._seen = seen
             self._look_again = False
@@ -427,8 +543,8 @@ class ReviewPanel(QFrame):
         fresh = load_field(self.batch, self.view.field_id)
         changed = _readings(fresh) != _readings(self.view)
         self.view = fresh
-        if len(self.edit.typed) != len(fresh.slots):
-            self.edit = _Edit([None] * len(fresh.slots))
+        if len(self.edit.typed) != len(_typing_slots(fresh)):
+            self.edit = _Edit([None] * len(_typing_slots(fresh)))
         if changed:
             self._look_again = True
             self.message.emit(CHANGED_WORDS)
@@ -467,11 +583,15 @@ class ReviewPanel(QFrame):
         item = self.items[self._item_index[view.field_id]] if view.field_id in self._item_index else None
         why = reasons_in_words(item.why) if item is not None and view.state == TO_CHECK else ""
         state = f"{STATE_MARKS[view.state]} {STATE_WORDS[view.state]}"
-        self.place.setText(f"<b>{view.place}</b> — {state}" + (f"<br>Why: {why}" if why else ""))
+        handled = " (Enter goes on; type to change it)" if view.state in _HANDLED else ""
+        spot = f"<br>{SPOT_WORDS}" if self.spot and view.field_id in self._open else ""
+        self.place.setText(f"<b>{view.place}</b> — {state}{handled}" + (f"<br>Flagged because: {why}." if why else "")
+                           + spot)
+        self._fit_tiles()
         self.strip.setPixmap(self._strip(view).scaled(
             max(200, self.strip.width() - 8), 110, Qt.AspectRatioMode.KeepAspectRatio,
             Qt.TransformationMode.SmoothTransformation))
-        slots = {d.digit_id: k for k, d in enumerate(view.slots)}
+        slots = {d.digit_id: k for k, d in enumerate(_typing_slots(view))}
         for tile, d in zip(self.tiles, view.digits):
             tile.pixmap = QPixmap.fromImage(self.cache.crop(d.digit_id)) if self.cache else None
             k = slots.get(d.digit_id)
@@ -487,6 +607,20 @@ class ReviewPanel(QFrame):
         value = self.typed_value() if self.edit.touched else view.value
         self.value_label.setText(f"<span style='font-size:18pt'>Value: <b>{value or '(empty)'}</b></span>"
                                  + ("  <i>(typed, Enter saves)</i>" if self.edit.touched else ""))
+
+    def _fit_tiles(self) -> None:
+        """Scale the boxes down so that all of the field's boxes fit the panel's width."""
+        n = len(self.view.digits) if self.view is not None else 0
+        if not n:
+            return
+        spacing = self.tiles_row.spacing()
+        side = (self.tiles_box.width() - spacing * (n + 1)) // n
+        for tile in self.tiles:
+            tile.set_side(side)
+
+    def resizeEvent(self, event) -> None:  # noqa: N802 (Qt name)
+        super().resizeEvent(event)
+        self._fit_tiles()
 
     @staticmethod
     def _shown_value(view: FieldView, d) -> str:
@@ -535,7 +669,7 @@ class ReviewPanel(QFrame):
         """The field's value as typed: typed boxes, the others as they stand; "not a digit" marks drop out."""
         assert self.view is not None
         out = []
-        for t, d in zip(self.edit.typed, self.view.slots):
+        for t, d in zip(self.edit.typed, _typing_slots(self.view)):
             v = t if t is not None else self._shown_value(self.view, d)
             out.append("" if v in (NOT_A_DIGIT_MARK, None) else v)
         return "".join(out)
@@ -544,7 +678,7 @@ class ReviewPanel(QFrame):
         if self.view is None or not self.edit.typed:
             return
         if self.edit.cursor >= len(self.edit.typed):
-            self.message.emit("All boxes are filled: Enter saves, Backspace steps back.")
+            self.message.emit("That was the last box: Enter saves, Backspace goes back to the previous box.")
             return
         self.edit.typed[self.edit.cursor] = ch
         self.edit.cursor += 1
@@ -584,6 +718,10 @@ class ReviewPanel(QFrame):
             self.move_cursor(-1)
         elif key == Qt.Key.Key_Right:
             self.move_cursor(1)
+        elif key == Qt.Key.Key_Home:
+            self.move_cursor(-len(self.edit.typed))
+        elif key == Qt.Key.Key_End:
+            self.move_cursor(len(self.edit.typed))
         elif key == Qt.Key.Key_PageDown:
             self.next_field()
         elif key == Qt.Key.Key_PageUp:
@@ -646,6 +784,11 @@ class ReviewPanel(QFrame):
             if not go:
                 return
             fid = self.view.field_id
+            if not self.edit.touched and self.view.state in _HANDLED:
+                self.message.emit(f"{self.view.name} is already {STATE_WORDS[self.view.state]}; nothing saved again.")
+                self.edit = _Edit([])
+                self.next_field()
+                return
             try:
                 if self.edit.touched:
                     value = self.typed_value()

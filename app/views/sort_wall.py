@@ -386,7 +386,7 @@ class SortWall(QScrollArea):
         ids = self._selected(lst)
         row = min((lst.row(e) for e in lst.selectedItems()), default=0)
         self.touched.update(ids)
-        self._apply(ids, lambda d: confirm(self.batch, digit=d), f"Confirmed {len(ids)} as read.", as_read=True)
+        self._apply(ids, lambda d: confirm(self.batch, digit=d), f"Confirmed {len(ids)} digit{'' if len(ids) == 1 else 's'} as read.", as_read=True)
         self._select_row(lst, row)
 
     def ask_confirm_group(self, group: int) -> bool:
@@ -418,7 +418,7 @@ class SortWall(QScrollArea):
     def confirm_group(self, group: int, *, ids: list[int] | None = None) -> None:
         """Confirm ``ids`` (default: :meth:`sweep_ids`) as read, without asking (:meth:`ask_confirm_group` asks)."""
         ids = self.sweep_ids(group) if ids is None else ids
-        self._apply(ids, lambda d: confirm(self.batch, digit=d), f"Confirmed {len(ids)} as read.", as_read=True)
+        self._apply(ids, lambda d: confirm(self.batch, digit=d), f"Confirmed {len(ids)} digit{'' if len(ids) == 1 else 's'} as read.", as_read=True)
 
     def _ask_box(self, title: str, question: str, details: str) -> bool:
         box = QMessageBox(QMessageBox.Icon.Question, title, question, parent=self)

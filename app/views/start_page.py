@@ -1,5 +1,6 @@
 """The start page, shown while no batch is open: what the program does, how to open
-scans or a batch, the recent batches, and the caution about automatic reading."""
+scans or a batch, and the recent batches (the caution about automatic reading is in
+the status line, always shown)."""
 
 from __future__ import annotations
 
@@ -8,7 +9,6 @@ from pathlib import Path
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import QHBoxLayout, QLabel, QListWidget, QListWidgetItem, QPushButton, QVBoxLayout, QWidget
 
-from ..look import CAUTION, CAUTION_STYLE
 
 __all__ = ["StartPage"]
 
@@ -52,10 +52,6 @@ class StartPage(QWidget):
         self.recent_list.setAccessibleName("Recent batches")
         self.recent_list.itemActivated.connect(lambda item: self.recent_chosen.emit(item.data(Qt.ItemDataRole.UserRole)))
         box.addWidget(self.recent_list)
-        note = QLabel("⚠ " + CAUTION)
-        note.setWordWrap(True)
-        note.setStyleSheet(CAUTION_STYLE)
-        box.addWidget(note)
         row = QHBoxLayout()
         row.addStretch(1)
         holder = QWidget()

@@ -8,13 +8,20 @@ draws a new run of boxes, moves a field, splits a run in two or joins two
 neighbouring runs, and saves the file. Every change is made by the library's
 editing steps (:func:`recognizer.forms.editing.update_field`, ``split_field``,
 ``join_fields`` ...), which refuse what would not hold together; the message
-is shown under the page.
+is shown under the page. What the form (name, type, rules) and the Sums box
+hold is kept when the clerk moves to another field, changes a field's shape
+or saves, without "Apply to field"; an edit the template refuses keeps its
+field selected, with the reason, until it is fixed or the field is chosen
+again (which puts it back as it was).
 
 Keys: Ctrl+S save, Ctrl+Enter apply the field's settings, Del delete the
 field, Ctrl+D draw a new run (then drag a rectangle on the page), arrows
 move the field (Shift: 10 pixels), Ctrl+K split at the chosen box, Ctrl+J
 join with the field to its right, Ctrl+Up / Ctrl+Down previous / next field,
 Esc close.
+
+This module is longer than 600 lines: the editor's page canvas, its form and
+the editing steps it drives share the selected field and are kept together.
 """
 
 from __future__ import annotations
@@ -170,6 +177,9 @@ class TemplateEditor(QDialog):
         self._bump = loaded
         self.selected: str | None = template.fields[0].name if template.fields else None
         self.drawing = False
+        #: The form (name, type, rules) or the Sums box holds edits not yet in ``template``.
+        self._form_dirty = self._sums_dirty = False
+        self._filling = False
         self._build()
         self._show_page()
         self._fill_list()
@@ -253,6 +263,12 @@ class TemplateEditor(QDialog):
         self.sums.setAccessibleName("Sum rules")
         self.sums.setToolTip("One per line, as total = part + part (field names)")
         self.sums.setFixedHeight(70)
+        self.sums.textChanged.connect(self._sums_touched)
+        for signal in (self.name_edit.textChanged, self.type_box.currentIndexChanged, self.decimals.valueChanged,
+                       self.date_order.currentTextChanged, self.check_digit.currentIndexChanged,
+                       self.required.toggled, self.minimum.textChanged, self.maximum.textChanged,
+                       self.lengths.textChanged):
+            signal.connect(self._form_touched)
 
         shapes = QFormLayout()
         split_row = QHBoxLayout()
@@ -359,13 +375,32 @@ class TemplateEditor(QDialog):
         if self.selected in names:
             self.fields.setCurrentRow(names.index(self.selected))
         self.fields.blockSignals(False)
-        self.sums.setPlainText("\n".join(sum_text(r) for r in self.template.sums))
+        if not self._sums_dirty:
+            self._filling = True
+            self.sums.setPlainText("\n".join(sum_text(r) for r in self.template.sums))
+            self._filling = False
         self._fill_form()
+
+    def _form_touched(self, *_) -> None:
+        if not self._filling:
+            self._form_dirty = True
+
+    def _sums_touched(self) -> None:
+        if not self._filling:
+            self._sums_dirty = True
 
     def _fill_form(self) -> None:
         f = self.template.field(self.selected) if self.selected else None
         if f is None:
             return
+        self._filling = True
+        try:
+            self._fill_form_from(f)
+        finally:
+            self._filling = False
+        self._form_dirty = False
+
+    def _fill_form_from(self, f) -> None:
         self.name_edit.setText(f.name)
         self.type_box.setCurrentIndex(FIELD_TYPES.index(f.type))
         self.decimals.setValue(max(1, f.decimals))
@@ -402,19 +437,53 @@ class TemplateEditor(QDialog):
         self.say(done)
         return True
 
-    def _try(self, step, done: str, *, selected: str | None = None) -> bool:
+    def _try(self, step, done: str, *, selected: str | None = None, keep: bool = True) -> bool:
+        if keep and not self.keep_edits():
+            return False
         try:
             template = step()
         except TemplateError as exc:
-            self.say(f"Not changed: {exc}.", problem=True)
+            again = " (choose the field again to put it back as it was)" if self._form_dirty else ""
+            self.say(f"Not changed: {exc}{again}.", problem=True)
             return False
         return self._change(template, done, selected=selected)
 
+    def keep_edits(self) -> bool:
+        """Keep what the form and the Sums box hold that is not yet in the template (leaving a
+        field, saving, or changing its shape does not lose it); False, with the reason shown,
+        when it is refused."""
+        if self._form_dirty and self.selected is not None and not self.apply_field():
+            return False
+        if self._sums_dirty:
+            try:
+                lines = [line for line in self.sums.toPlainText().splitlines() if line.strip()]
+                self.template = set_sums(self.template, [parse_sum(line) for line in lines])
+            except TemplateError as exc:
+                self.say(f"Sums not kept: {exc}.", problem=True)
+                return False
+            self._sums_dirty = False
+        return True
+
     def select(self, name: str) -> None:
-        """Make ``name`` the field the form and the keys work on."""
+        """Make ``name`` the field the form and the keys work on (the form's edits of the field
+        selected before are kept first; if they are refused, that field stays selected)."""
+        if name == self.selected and self._form_dirty:
+            self._fill_form()  # the same field again: its form as it is in the template
+            self.say(f"Field {name} as it was.")
+            return
+        if name != self.selected and not self.keep_edits():
+            self._fill_list_selection()
+            return
         self.selected = name
         self._draw_fields()
         self._fill_list()
+
+    def _fill_list_selection(self) -> None:
+        names = [f.name for f in self.template.fields]
+        self.fields.blockSignals(True)
+        if self.selected in names:
+            self.fields.setCurrentRow(names.index(self.selected))
+        self.fields.blockSignals(False)
 
     def _step(self, step: int) -> None:
         names = [f.name for f in self.template.fields]
@@ -439,16 +508,17 @@ class TemplateEditor(QDialog):
                 "lengths": _lengths(self.lengths.text()),
             }
         except TemplateError as exc:
-            self.say(f"Not changed: {exc}.", problem=True)
+            self.say(f"Not changed: {exc} (choose the field again to put it back as it was).", problem=True)
             return False
         name = changes["name"]
         return self._try(lambda: update_field(self.template, self.selected, **changes),
-                         f"Field {name} changed.", selected=name)
+                         f"Field {name} changed.", selected=name, keep=False)
 
     def delete_selected(self) -> bool:
         if self.selected is None:
             return False
         name = self.selected
+        self._form_dirty = False  # the field goes: its form goes with it
         return self._try(lambda: delete_field(self.template, name), f"Field {name} removed.")
 
     def move_selected(self, dx: int, dy: int) -> bool:
@@ -508,7 +578,7 @@ class TemplateEditor(QDialog):
         if self.drawing:
             return
         name = self._at(point)
-        if name is not None and name != self.selected:
+        if name is not None and (name != self.selected or self._form_dirty):
             self.select(name)
 
     def _dragged(self, start: QPointF, end: QPointF) -> None:
@@ -520,7 +590,9 @@ class TemplateEditor(QDialog):
     # ------------------------------------------------------------------ saving
 
     def save(self) -> bool:
-        """Apply the sum rules and write the file (version raised if it was saved before)."""
+        """Keep the form's edits, apply the sum rules and write the file (version raised if it was saved before)."""
+        if self._form_dirty and self.selected is not None and not self.apply_field():
+            return False
         try:
             lines = [line for line in self.sums.toPlainText().splitlines() if line.strip()]
             template = set_sums(self.template, [parse_sum(line) for line in lines])
@@ -545,6 +617,7 @@ class TemplateEditor(QDialog):
             return False
         self._bump = True
         self.template = template
+        self._sums_dirty = False
         self.say(f"Saved {self.path.name} ({template.label}).")
         self.saved.emit(self.path)
         return True

@@ -7,7 +7,9 @@ time), :mod:`~recognizer.batch.flags` (the flagging rule applied to stored
 fields), :mod:`~recognizer.batch.edits` (the writes review actions make),
 :mod:`~recognizer.batch.queries` and :mod:`~recognizer.batch.review_rows`
 (read-only views for the window, the review queue and the commands),
-:mod:`~recognizer.batch.samples` (labelled boxes for retraining). All SQL of
+:mod:`~recognizer.batch.samples` (labelled boxes for retraining),
+:mod:`~recognizer.batch.audits` (spot checks of the fields accepted without
+a person). All SQL of
 the program lives in this package.
 """
 

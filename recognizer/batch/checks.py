@@ -14,7 +14,8 @@ checks it against its declared schema version before anything else reads it:
 * **Stored JSON and values** (:func:`check_rows`): the boxes, doubts, warnings,
   layouts, rule problems and undo snapshots of every row have their shape (a
   box is four whole numbers), states are known states, confidences lie in 0..1,
-  probabilities are 11 float32, and every box a digit row names exists.
+  probabilities are 11 float32, every box a digit row names exists, and the
+  fields a spot check drew exist.
 * **Images** (:func:`check_png`): a page image or a box crop is a PNG whose
   header declares at most :data:`LIMITS` ``["image_pixels"]`` (an A3 page at
   600 dpi is 70 million); it is checked before it is decoded.
@@ -264,6 +265,20 @@ def check_rows(conn: sqlite3.Connection) -> None:
             raise ValueError(f"a digit of field {field_id} names a box the field does not have")
     if conn.execute("SELECT 1 FROM digits WHERE box < 0 LIMIT 1").fetchone():
         raise ValueError("a digit names a box the field does not have")
+    if "audits" in {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}:
+        _check_audits(conn)
+
+
+def _check_audits(conn: sqlite3.Connection) -> None:
+    """Spot-check records (schema version 4) hold whole numbers and name fields and spot checks that exist."""
+    if conn.execute("SELECT 1 FROM audits WHERE typeof(seed) != 'integer' OR typeof(asked) != 'integer' "
+                    "OR typeof(population) != 'integer' OR typeof(after_action) != 'integer' LIMIT 1").fetchone():
+        raise ValueError("a spot check record holds a seed or a count of the wrong kind")
+    if conn.execute("SELECT 1 FROM audit_fields a LEFT JOIN fields f ON f.id = a.field_id "
+                    "LEFT JOIN audits u ON u.id = a.audit_id "
+                    "WHERE f.id IS NULL OR u.id IS NULL OR typeof(a.value) != 'text' "
+                    "OR typeof(a.position) != 'integer' LIMIT 1").fetchone():
+        raise ValueError("a spot check names a field or a spot check that is not in the batch")
 
 
 # --------------------------------------------------------------------------- images

@@ -29,6 +29,7 @@ from recognizer.states import State
 __all__ = [
     "DigitSnapshot",
     "FieldSnapshot",
+    "REVIEW_KINDS",
     "ActionRow",
     "BoxRow",
     "NewReading",
@@ -201,6 +202,10 @@ class ActionRow:
         return cls(r["id"], r["time"], r["reviewer"], r["kind"], r["field_id"], r["digit_id"], r["old_value"],
                    r["new_value"], None if r["before"] is None else FieldSnapshot.from_json(r["before"]),
                    r["undoes"], r["undone_by"])
+
+
+#: The kinds of action a person takes on a field (what :func:`recognizer.review.actions.undo` takes back).
+REVIEW_KINDS = ("set digit", "set field", "confirm digit", "confirm field", "unreadable digit", "unreadable field")
 
 
 def add_action(conn: sqlite3.Connection, *, time: str, reviewer: str, kind: str, field_id: int | None = None,

@@ -34,6 +34,15 @@ are checked again after a review and the export types the values without the
 template file; ``fields.typed`` is the field's value as its template types it
 (``18.7``, ``2026-09-13``), NULL without a template. Pages read into a version
 2 file keep NULL there (their template was not kept): they export their digits.
+Version 4 records spot checks (:mod:`recognizer.review.audit`), so that a
+statement of the residual error can be reproduced: ``audits(drawn_at,
+reviewer, seed, method, asked, population, after_action)`` (who drew the
+sample, when, with which seed and method, how many fields were asked for, how
+many fields were accepted without a person then, and the last action logged
+before the draw: a drawn field is audited once a person confirmed or corrected
+it in a later action) and ``audit_fields(audit_id, field_id, position,
+value)`` (the fields drawn, in the order they are checked, each with the
+value accepted when it was drawn).
 The meaning of the states and of ``value``/``whole``/``resolution`` is in
 :mod:`recognizer.states` and :mod:`recognizer.review.actions`.
 """
@@ -165,8 +174,34 @@ def _schema_v3(conn: sqlite3.Connection) -> None:
     )
 
 
+def _schema_v4(conn: sqlite3.Connection) -> None:
+    """Version 4: spot checks of the fields accepted without a person, and the fields each one drew."""
+    _run_script(
+        conn,
+        """
+        CREATE TABLE audits (
+            id INTEGER PRIMARY KEY,
+            drawn_at TEXT NOT NULL,
+            reviewer TEXT NOT NULL,
+            seed INTEGER NOT NULL,
+            method TEXT NOT NULL,
+            asked INTEGER NOT NULL,
+            population INTEGER NOT NULL,
+            after_action INTEGER NOT NULL DEFAULT 0
+        );
+        CREATE TABLE audit_fields (
+            audit_id INTEGER NOT NULL REFERENCES audits(id),
+            field_id INTEGER NOT NULL REFERENCES fields(id),
+            position INTEGER NOT NULL,
+            value TEXT NOT NULL,
+            PRIMARY KEY (audit_id, field_id)
+        );
+        """
+    )
+
+
 #: Schema steps in order: ``MIGRATIONS[i]`` brings a file from version i to i + 1.
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_schema_v1, _schema_v2, _schema_v3]
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_schema_v1, _schema_v2, _schema_v3, _schema_v4]
 #: Schema version written by this program.
 SCHEMA_VERSION = len(MIGRATIONS)
 

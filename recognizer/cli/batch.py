@@ -8,7 +8,10 @@
 ``inkcount status BATCH``
     Pages, fields and digits counted by state.
 ``inkcount export BATCH --out checked.csv [--allow-unchecked] [--audit]``
-    The checked CSV (see :mod:`recognizer.review.checked_export`).
+    The checked CSV (see :mod:`recognizer.review.checked_export`), and beside it
+    ``checked.residual.txt``, the statement of the residual error (see
+    :mod:`recognizer.review.audit`; spot checks are ``inkcount audit``,
+    :mod:`recognizer.cli.audit`).
 
 Exit status: 0 done; 1 refused (fields still to check, an undo that is not
 possible); 2 bad arguments or a batch file that cannot be used.
@@ -30,7 +33,8 @@ from recognizer.states import STATES, State
 
 TO_CHECK = State.TO_CHECK
 
-__all__ = ["add_batch_commands", "run_review", "run_status", "run_export", "parse_ref"]
+__all__ = ["add_action_options", "add_batch_commands", "apply_actions", "run_review", "run_status", "run_export",
+           "parse_ref", "table_text"]
 
 
 def add_batch_commands(subparsers) -> None:
@@ -43,16 +47,7 @@ def add_batch_commands(subparsers) -> None:
     )
     p.add_argument("batch", type=Path, metavar="BATCH", help="batch file (.inkcount)")
     p.add_argument("--list", action="store_true", help="list the fields still to check (after any actions)")
-    p.add_argument("--set", dest="actions", action=_Append, kind="set", metavar="FILE:PAGE:FIELD=VALUE",
-                   help="give a field its value (repeatable)")
-    p.add_argument("--confirm", dest="actions", action=_Append, kind="confirm", metavar="FILE:PAGE:FIELD",
-                   help="the value read is right (repeatable)")
-    p.add_argument("--unreadable", dest="actions", action=_Append, kind="unreadable", metavar="FILE:PAGE:FIELD",
-                   help="the field cannot be read; it exports empty (repeatable)")
-    p.add_argument("--undo", dest="actions", action=_Append, kind="undo", nargs=0,
-                   help="take back your last action still in effect (repeatable)")
-    p.add_argument("--reviewer", default=default_reviewer(), metavar="NAME",
-                   help="name recorded with each action (default: your user name)")
+    add_action_options(p)
     p.set_defaults(func=run_review, actions=[])
 
     p = subparsers.add_parser("status", help="count pages, fields and digits of a batch by state",
@@ -73,6 +68,38 @@ def add_batch_commands(subparsers) -> None:
     p.add_argument("--audit", action="store_true",
                    help="add <field>_state and <field>_lowest_confidence columns")
     p.set_defaults(func=run_export)
+
+
+def add_action_options(p: argparse.ArgumentParser) -> None:
+    """``--set``, ``--confirm``, ``--unreadable``, ``--undo`` and ``--reviewer``, collected in ``args.actions``
+    in command-line order (``inkcount review`` and ``inkcount audit`` take the same)."""
+    p.add_argument("--set", dest="actions", action=_Append, kind="set", metavar="FILE:PAGE:FIELD=VALUE",
+                   help="give a field its value (repeatable)")
+    p.add_argument("--confirm", dest="actions", action=_Append, kind="confirm", metavar="FILE:PAGE:FIELD",
+                   help="the value read is right (repeatable)")
+    p.add_argument("--unreadable", dest="actions", action=_Append, kind="unreadable", metavar="FILE:PAGE:FIELD",
+                   help="the field cannot be read; it exports empty (repeatable)")
+    p.add_argument("--undo", dest="actions", action=_Append, kind="undo", nargs=0,
+                   help="take back your last action still in effect (repeatable)")
+    p.add_argument("--reviewer", default=default_reviewer(), metavar="NAME",
+                   help="name recorded with each action (default: your user name)")
+
+
+def apply_actions(batch: Batch, actions: list[tuple[str, str | None]], reviewer: str) -> int:
+    """Apply the collected review actions in order, printing each; 0 done, 1 an action refused (the ones
+    before it stay), 2 a reference that names no field (nothing changed)."""
+    try:
+        plan = [_resolve(batch, kind, text) for kind, text in actions]
+    except ReviewError as exc:
+        _err(f"{exc}; nothing was changed")
+        return 2
+    for kind, ref, field_id, value in plan:
+        try:
+            print(_apply(batch, kind, ref, field_id, value, reviewer))
+        except ReviewError as exc:
+            _err(str(exc))
+            return 1
+    return 0
 
 
 class _Append(argparse.Action):
@@ -115,19 +142,9 @@ def run_review(args: argparse.Namespace) -> int:
         _err(str(exc))
         return 2
     with batch:
-        try:
-            plan = [_resolve(batch, kind, text) for kind, text in args.actions]
-        except ReviewError as exc:
-            _err(f"{exc}; nothing was changed")
+        status = apply_actions(batch, args.actions, args.reviewer)
+        if status == 2:
             return 2
-        status = 0
-        for kind, ref, field_id, value in plan:
-            try:
-                print(_apply(batch, kind, ref, field_id, value, args.reviewer))
-            except ReviewError as exc:
-                _err(str(exc))
-                status = 1
-                break
         if args.list or not args.actions:
             _print_list(batch)
     return status
@@ -161,7 +178,8 @@ def _field_ref(batch: Batch, field_id: int) -> str:
     return f"{file}:{page}:{name}"
 
 
-def _table(rows: list[list[str]]) -> str:
+def table_text(rows: list[list[str]]) -> str:
+    """Rows of cells as aligned columns."""
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     return "\n".join("  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in rows)
 
@@ -178,7 +196,7 @@ def _print_list(batch: Batch) -> None:
              "" if i.confidence is None else f"{i.confidence:.3f}", i.words]
             for i in items
         ]
-        print(_table(rows))
+        print(table_text(rows))
     for p in problems:
         print(f"not read: {p.file}" + ("" if p.page is None else f" page {p.page}") + f": {p.problem}")
 
@@ -202,7 +220,7 @@ def run_status(args: argparse.Namespace) -> int:
     for what in ("pages", "fields", "digits"):
         c = counts[what]
         rows.append([what, *(str(c.get(s, 0)) for s in STATES), str(sum(c.values()))])
-    print(_table(rows))
+    print(table_text(rows))
     left = counts["fields"].get(TO_CHECK, 0)
     print("Nothing left to check." if not left else f"{left} field(s) still to check.")
     return 0
@@ -225,4 +243,5 @@ def run_export(args: argparse.Namespace) -> int:
         return 1
     note = f" ({result.unchecked} field(s) not checked, listed in unchecked_fields)" if result.unchecked else ""
     print(f"Wrote {result.rows} row(s) to {args.out}{note}.")
+    print(f"{result.residual_line} (Written to {result.residual}.)")
     return 0

@@ -4,6 +4,10 @@ Sub-commands:
 
 ``inkcount read SCANS... --out values.csv``
     Read the digit boxes of scan files and folders into a CSV.
+``inkcount review|status|export BATCH ...``
+    Check a batch and export it (see :mod:`recognizer.cli.batch`).
+``inkcount audit BATCH ...``
+    Spot checks: how many wrong values are left (see :mod:`recognizer.cli.audit`).
 ``inkcount model train|evaluate ...``
     Build or check the digit model (see :mod:`recognizer.cli.model`).
 ``inkcount template new|check ...``
@@ -23,6 +27,7 @@ from pathlib import Path
 from recognizer import CAUTION, __version__
 from recognizer.batch.store import Batch, BatchFileError
 from recognizer.ingest import ingest_scans
+from recognizer.cli.audit import add_audit_commands
 from recognizer.cli.batch import add_batch_commands
 from recognizer.cli.model import add_model_commands
 from recognizer.cli.template import add_template_commands
@@ -53,6 +58,7 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     _add_read_command(sub)
     add_batch_commands(sub)
+    add_audit_commands(sub)
     add_model_commands(sub)
     add_template_commands(sub)
     for entry in entry_points(group=COMMANDS_GROUP):

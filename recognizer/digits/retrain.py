@@ -322,7 +322,7 @@ def retrain(
     offset = float(parent.metadata.get("calibration", {}).get("not_a_digit_offset", 0.0))
     replay = parent.replay_images.astype(np.float32) / 255.0
     replay_labels = parent.replay_labels.astype(np.int64)
-    say(f"{len(tr)} new samples to learn from, {len(ck)} held back; {len(replay_labels)} replay digits")
+    say(f"Learning from {len(tr):,} checked digits ({len(ck):,} more kept aside to test the result)…")
     members = []
     from threadpoolctl import threadpool_limits
 
@@ -333,7 +333,7 @@ def retrain(
             x, y = _mix(samples.cells[tr], samples.labels[tr], replay, replay_labels, settings, rng, kind)
             clf = _fine_tune(layers, x, y, settings, seed=int(rng.integers(2**31 - 1)), should_stop=should_stop)
             members.append(export_member(clf, str(np.asarray(layers[0][0]).dtype)))
-            say(f"member {k + 1}/{len(parent.members)}: {len(y)} samples, loss {clf.loss_:.4f}")
+            say(f"Part {k + 1} of {len(parent.members)} of the model trained…")
     model = DigitModel(members=members, replay_images=parent.replay_images, replay_labels=parent.replay_labels,
                        validation_images=parent.validation_images, validation_labels=parent.validation_labels,
                        preprocessing=parent.preprocessing)

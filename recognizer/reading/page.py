@@ -28,6 +28,8 @@ import numpy as np
 from recognizer.page.boxes import NO_BOXES, Box, BoxFinding, find_fields, warp_like
 from recognizer.page.dropout import DropoutLayers, split_dropout
 from recognizer.page.cells import Cell, cut_cells
+from recognizer.page.loose_ink import loose_numbers
+from recognizer.digits.preprocess import to_model_input
 from recognizer.digits.model import CLASSES, NOT_A_DIGIT, DigitModel
 from recognizer.forms.registration import Registrar, match_templates
 from recognizer.scans.files import Page
@@ -160,6 +162,10 @@ class PageRead:
 
 #: What a page says when its boxes cannot be seen (a dropout print scanned in black and white).
 BOXES_NOT_VISIBLE = "the digit boxes are not visible on this page: read it with its form template"
+#: ... and when only some are: handwritten numbers stand outside the boxes found.
+SOME_BOXES_NOT_VISIBLE = ("some digit boxes are not visible on this page (handwritten numbers stand outside "
+                          "the boxes found): read it with its form template")
+_LOOSE_DIGIT_CONFIDENCE = 0.9
 
 
 def _bitonal(image: np.ndarray) -> bool:
@@ -228,11 +234,24 @@ class PageReader:
             read = self._read_dropout(page, layers)
         else:
             finding = find_fields(page.image, dpi=page.dpi)
-            if finding.problem == NO_BOXES and _bitonal(page.image):
-                finding.problem = BOXES_NOT_VISIBLE
+            if _bitonal(page.image):
+                if finding.problem == NO_BOXES:
+                    finding.problem = BOXES_NOT_VISIBLE
+                elif finding and self._numbers_outside_boxes(finding):
+                    finding.problem = SOME_BOXES_NOT_VISIBLE
             read = self.read_finding(finding, source=page.source, page=page.page)
         read.warnings[:0] = page.warnings  # from the capture (a blurred or small photo)
         return read
+
+    def _numbers_outside_boxes(self, finding: BoxFinding) -> bool:
+        """Whether handwritten numbers stand outside the boxes found (boxes lost: a dropout print in
+        black and white); see :mod:`recognizer.page.loose_ink`."""
+        def classify(crops: list[np.ndarray]) -> np.ndarray:
+            cells = np.stack([to_model_input(c.astype(np.float32) / 255.0) for c in crops])
+            probs = self.model.predict_proba(cells)
+            return (probs.argmax(axis=1) != NOT_A_DIGIT) & (probs.max(axis=1) >= _LOOSE_DIGIT_CONFIDENCE)
+
+        return bool(loose_numbers(finding.image, dpi=finding.dpi, fields=finding.fields, classify=classify))
 
     def _read_dropout(self, page: Page, layers: DropoutLayers) -> PageRead:
         """Boxes found on the printed layer, digits cut from the ink layer (same deskew)."""

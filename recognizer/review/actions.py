@@ -65,7 +65,7 @@ __all__ = [
 
 READ, TO_CHECK, CORRECTED, CONFIRMED, UNREADABLE = (
     State.READ.value, State.TO_CHECK.value, State.CORRECTED.value, State.CONFIRMED.value, State.UNREADABLE.value)
-_REVIEW_KINDS = ("set digit", "set field", "confirm digit", "confirm field", "unreadable digit", "unreadable field")
+_REVIEW_KINDS = edits.REVIEW_KINDS
 
 #: A change to one field, run inside the action's transaction with the field as it was before.
 FieldChange = Callable[[sqlite3.Connection, FieldSnapshot], None]

@@ -21,6 +21,15 @@ double-quote quoting, CRLF line ends) in UTF-8, written to a temporary file
 and renamed into place, so a refused or failed export leaves no partial file.
 
 Export is refused while fields are still to check, unless ``allow_unchecked``.
+
+Beside the CSV, ``<name>.residual.txt`` (``checked.csv`` -> ``checked.residual.txt``)
+states the batch's residual error in plain words a data manager can paste into
+a report (:func:`recognizer.review.audit.residual_statement`): fields, checked
+by a person, corrected, still to check, accepted without a person, and the
+latest spot check (fields audited, errors found, the 95 % upper bound on the
+share of wrong values among the fields accepted without a person); without a
+spot check it says that the residual error was not measured. It is written
+the same way as the CSV (temporary file, then renamed), UTF-8, LF line ends.
 """
 
 from __future__ import annotations
@@ -35,6 +44,7 @@ from recognizer.batch.queries import count_fields, stored_pages
 from recognizer.batch.review_rows import CheckedField, checked_fields
 from recognizer.batch.store import Batch
 from recognizer.reading.values_csv import csv_writer, field_sort_key, open_csv
+from recognizer.review.audit import residual_figures, residual_line, residual_path, residual_statement
 from recognizer.states import State
 
 TO_CHECK, UNREADABLE = (State.TO_CHECK, State.UNREADABLE)
@@ -44,12 +54,18 @@ __all__ = ["ExportResult", "checked_table", "export_checked", "unchecked_message
 
 @dataclass
 class ExportResult:
-    """What :func:`export_checked` wrote; falsy with ``problem`` set when it refused."""
+    """What :func:`export_checked` wrote; falsy with ``problem`` set when it refused.
+
+    ``residual`` is the statement file written beside the CSV, ``residual_line``
+    the statement in one line.
+    """
 
     path: Path
     rows: int = 0
     unchecked: int = 0
     problem: str | None = None
+    residual: Path | None = None
+    residual_line: str = ""
 
     def __bool__(self) -> bool:
         return self.problem is None
@@ -121,6 +137,7 @@ def export_checked(
     if unchecked and not allow_unchecked:
         return ExportResult(out, unchecked=unchecked, problem=unchecked_message(unchecked))
     header, rows = checked_table(batch, audit=audit, allow_unchecked=allow_unchecked)
+    figures = residual_figures(batch)
     tmp = out.with_name(f".{out.name}.partial")
     try:
         with open_csv(tmp) as fh:
@@ -131,4 +148,18 @@ def export_checked(
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
-    return ExportResult(out, rows=len(rows), unchecked=unchecked)
+    side = residual_path(out)
+    _write_text(side, residual_statement(figures, batch_name=Path(batch.path).name))
+    return ExportResult(out, rows=len(rows), unchecked=unchecked, residual=side, residual_line=residual_line(figures))
+
+
+def _write_text(path: Path, text: str) -> None:
+    """Write ``text`` to ``path`` through a temporary file renamed into place."""
+    tmp = path.with_name(f".{path.name}.partial")
+    try:
+        with open(tmp, "w", encoding="utf-8", newline="\n") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise

@@ -43,9 +43,11 @@ def test_retrain_save_and_use_for_the_batch(window, qtbot, sample_batch, tmp_pat
     window.retrain_settings = QUICK
     assert window.model_panel.retrain_button.isEnabled() and window.retrain_action.isEnabled()
     box = window.retrain()
-    assert box is not None and box.running and not box.close_button.isEnabled()
-    box.reject()  # cannot be stopped half-way: the box stays
-    assert box.isVisible() and "cannot be stopped" in box.step.text()
+    # it asks first: nothing runs until Start
+    assert box is not None and not box.running and box.start_button.isVisible() and box.close_button.isEnabled()
+    assert "can stop it at any time" in box.text.text()
+    box.start_button.click()
+    assert box.running and not box.close_button.isEnabled() and box.stop_button.isVisible()
     with qtbot.waitSignal(box.retrain_done, timeout=90_000) as blocker:
         pass
     result = blocker.args[0]
@@ -85,6 +87,7 @@ def test_a_worse_model_is_explained_and_offers_nothing_to_save(window, qtbot, sa
     _check_with_truth(window.batch, pages=2)
     window.retrain_settings = RetrainSettings(epochs=1, new_copies=0, replay_copies=0, heldout_tolerance=-1.0)
     box = window.retrain()
+    box.start()
     with qtbot.waitSignal(box.retrain_done, timeout=90_000) as blocker:
         pass
     result = blocker.args[0]
@@ -113,3 +116,23 @@ def test_missing_mlxtend_is_said_plainly(window, sample_batch, monkeypatch):
     monkeypatch.setattr(importlib.util, "find_spec", lambda name, *a: None if name == "mlxtend" else real(name, *a))
     assert window.retrain() is None
     assert "mlxtend" in window.last_message and "not installed" in window.last_message
+
+
+def test_retraining_can_be_stopped_and_writes_nothing(window, qtbot, sample_batch, tmp_path):
+    pytest.importorskip("mlxtend")
+    assert window.open_batch(sample_batch)
+    _check_with_truth(window.batch, pages=4)
+    window.retrain_settings = RetrainSettings(epochs=50, new_copies=4, replay_copies=2)  # long enough to stop
+    version, files = window.batch.settings.model_version, set(tmp_path.rglob("*.npz"))
+    box = window.retrain()
+    box.start()
+    qtbot.waitUntil(lambda: box.step.text().startswith("Learning from"), timeout=60_000)
+    with qtbot.waitSignal(box.retrain_done, timeout=30_000) as blocker:
+        box.reject()  # Esc while it runs: stop
+        assert box.isVisible() and box.step.text() == "Stopping…"
+    assert blocker.args[0] is None and "Retraining stopped: nothing was written" in box.problem
+    assert not box.running and box.close_button.isEnabled()
+    assert not box.save_button.isVisible() and not box.use_button.isVisible()
+    assert window.batch.settings.model_version == version and set(tmp_path.rglob("*.npz")) == files
+    box.reject()
+    assert not box.isVisible()

@@ -95,7 +95,7 @@ def test_all_are_asks_with_the_count_and_leaves_out_what_was_selected_or_changed
     lst.setFocus()
     qtbot.keyClick(lst, Qt.Key.Key_Return, Qt.KeyboardModifier.ControlModifier)  # Ctrl+Enter asks too
     assert wall.digit_ids(1) == [seven] and _state(batch, seven) == TO_CHECK
-    assert "Confirmed 16 as read." in wall.messages
+    assert "Confirmed 16 digits as read." in wall.messages
 
 
 def test_the_question_box_defaults_to_no(wall, odd, qtbot) -> None:

@@ -58,6 +58,7 @@ def test_decimal_and_date_types(editor):
     editor.date_order.setCurrentText("DDMMYY")
     assert not editor.apply_field()  # three boxes cannot hold DDMMYY, and crates_1 is in the sum
     assert "Not changed" in editor.message.text()
+    editor.select("crates_1")  # choosing the field again puts it back as it was
     editor.select("picking_date")
     editor.date_order.setCurrentText("YYYYMMDD")
     assert editor.apply_field()
@@ -78,6 +79,7 @@ def test_bad_input_gives_a_clear_message(editor):
     editor.name_edit.setText("block_number")
     assert not editor.apply_field()
     assert "used twice" in editor.message.text()
+    editor.name_edit.setText("row_number")
     editor.sums.setPlainText("total_crates crates_1")
     assert not editor.save()
     assert "total = part" in editor.message.text()

@@ -48,6 +48,8 @@ def test_review_by_keys_correct_confirm_unreadable_undo(window, qtbot, sample_ba
     panel = window.review
     panel.setFocus()
     first = panel.view
+    qtbot.keyClick(panel, Qt.Key.Key_Home)  # Home: the cursor to the first box
+    assert panel.edit.cursor == 0
     slot = first.slots[0]
     shown = slot.value if slot.value not in (None, "?") else slot.read
     other = "7" if shown != "7" else "3"
@@ -194,7 +196,8 @@ def test_reopening_restores_batch_and_place(qtbot, window_settings, sample_batch
     qtbot.keyClick(first.review, Qt.Key.Key_PageDown)
     qtbot.keyClick(first.review, Qt.Key.Key_PageDown)
     place = first.review.view.field_id
-    first.splitter.setSizes([111, 500, 600])
+    first.resize(780, 560)  # fits the small offscreen screen
+    first.splitter.setSizes([231, 200, 400])
     sizes = first.splitter.sizes()
     first.close()
     assert first.batch is None
@@ -205,21 +208,33 @@ def test_reopening_restores_batch_and_place(qtbot, window_settings, sample_batch
     second.start([])
     assert second.batch is not None and Path(second.batch.path) == sample_batch
     assert second.review.view.field_id == place
-    # The offscreen screen is small, so the restored window may be smaller: compare shares.
+    # The offscreen screen is small, so the restored window may be smaller: the page list and the
+    # check panel keep their widths, the page image takes what is left.
     restored = second.splitter.sizes()
-    assert restored[0] / sum(restored) == pytest.approx(sizes[0] / sum(sizes), abs=0.02)
+    assert restored[0] == pytest.approx(sizes[0], abs=4)
     assert str(sample_batch.absolute()) in second.settings.get("recent_batches")
     assert second.recent_list.count() == 1
     second.close()
 
 
+def _other_programs_database(path: Path) -> None:
+    import sqlite3
+
+    with sqlite3.connect(path) as conn:
+        conn.execute("CREATE TABLE orders (id INTEGER PRIMARY KEY, item TEXT)")
+        conn.execute("INSERT INTO orders (item) VALUES ('apples')")
+    conn.close()
+
+
 @pytest.mark.parametrize("content, reason", [
     (b"this is not a batch", "not an Inkcount batch file"),
-    (b"", "not an Inkcount batch file"),
+    (_other_programs_database, "not an Inkcount batch file"),
 ])
 def test_damaged_batch_file_is_named_with_the_reason(window, tmp_path, content, reason):
+    # (an empty file is what a batch killed while being created by an older Inkcount left:
+    # it is made afresh, see tests/recognizer/batch/test_kill_create.py)
     bad = tmp_path / "bad.inkcount"
-    bad.write_bytes(content)
+    bad.write_bytes(content) if isinstance(content, bytes) else content(bad)
     assert not window.open_batch(bad)
     assert str(bad) in window.last_message and reason in window.last_message
     assert window.batch is None
