@@ -12,7 +12,8 @@ Map:
 * :mod:`app.workers`: long library calls in worker threads, one shape.
 * :mod:`app.views`: what the window shows (pages, page, check panel, sort
   wall, model, start page, status bar, template editor).
-* :mod:`app.dialogs`: strictness, export, retrain, file choosers.
+* :mod:`app.dialogs`: strictness, export, retrain, file choosers, the form
+  template chosen when scans are opened.
 * :mod:`app.batch_access` (Qt images and change relay), :mod:`app.look`
   (colours, marks, words), :mod:`app.settings` (the window's own settings),
   :mod:`app.cli` (``inkcount window``), :mod:`app.screenshots` (the

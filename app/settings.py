@@ -1,7 +1,8 @@
 """The window's own settings: a small JSON file holding only values changed from the defaults.
 
 What is kept: the recent batches, the batch open at the last close, the place
-in the review of each batch (the field shown and the order), and the window
+in the review of each batch (the field shown and the order), the form template
+used or saved last (offered when scans are opened next), and the window
 layout (geometry and splitter positions, as base64 of Qt's state bytes).
 Everything about a batch itself (values, review states, threshold) lives in
 the batch file, not here.
@@ -35,6 +36,7 @@ DEFAULTS: dict[str, Any] = {
     "splitter": None,
     "tab": 0,
     "order": "page",
+    "last_template": None,
 }
 
 

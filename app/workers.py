@@ -19,6 +19,12 @@ until the thread has stopped, then ``ended``.
   the end (a minute or so) and writes nothing; the person decides afterwards.
 * :class:`RereadWorker` switches the batch to a model and reads its unchecked
   digits again (:func:`recognizer.review.reread_unchecked`).
+* :class:`RankWorker` orders the sort wall's groups
+  (:func:`recognizer.review.rank_group`, about 1.5 ms a crop the first time),
+  one group after another, so the wall shows at once and each group takes its
+  order when its ranking arrives. It only reads; it is *light*: closing the
+  batch cancels it (it stops within a few dozen crops) and it never keeps
+  learning from starting.
 * :class:`LearnWorker` runs one round of learning during the batch
   (:func:`recognizer.learning.train_round`, then
   :func:`recognizer.learning.finish_round` inside the
@@ -51,10 +57,11 @@ from recognizer.learning import (
     learn,
     train_round,
 )
-from recognizer.review import reread_unchecked
+from recognizer.review import GroupRanking, rank_group, reread_unchecked
 from recognizer.scans.files import ScanProblem, count_pages
 
 __all__ = ["Worker", "Refused", "Job", "ReadWorker", "RetrainWorker", "RereadWorker", "LearnWorker",
+           "RankWorker",
            "start_worker", "too_few_message"]
 
 
@@ -82,6 +89,8 @@ class Worker(QObject):
 
     #: Begins the message of an unexpected error.
     stopped_words = "Stopped"
+    #: A short read-only job: cancelled when the batch closes, never keeps other work from starting.
+    light = False
 
     def __init__(self) -> None:
         super().__init__()
@@ -192,8 +201,12 @@ class RetrainWorker(Worker):
             except RetrainStopped as exc:
                 raise Refused("Retraining stopped: nothing was written, and the batch keeps its model.") from exc
             except RuntimeError as exc:
-                raise Refused(f"Retraining needs the held-out check digits to measure the new model: {exc}.") from exc
+                raise Refused(f"Retraining needs the 5,000 test digits it never saw to measure the new model: {exc}.") from exc
         except ValueError as exc:  # the library's refusals (e.g. a model without replay digits)
+            if "replay" in str(exc):
+                raise Refused("Cannot retrain this model: its file does not carry the digits it was trained "
+                              "on, which retraining mixes in so that it does not forget them. Retrain the "
+                              "model Inkcount comes with instead.") from exc
             raise Refused(f"Cannot retrain: {exc}.") from exc
         return result
 
@@ -225,6 +238,53 @@ class RereadWorker(Worker):
 
     def work(self):
         return reread_unchecked(self.batch, self.model, model_path=str(Path(self.model_path).resolve()))
+
+
+class RankWorker(Worker):
+    """Orders the sort wall's groups, the crops least like their group's typical shape first.
+
+    Parameters
+    ----------
+    batch : Batch
+    groups : dict
+        Group (digit read) -> its crops as (digit id, field id, box index), ranked in this order.
+    cells : dict
+        The wall's model inputs by digit id, cut once for the batch's life; the ones cut here are added.
+    tag : int
+        Sent back with every ranking, so the wall can tell a ranking of an older build.
+
+    Signals
+    -------
+    ranked(tag, group, ranking)
+        One group's :class:`recognizer.review.GroupRanking`, as soon as it is done.
+    finished(None)
+    failed(message)
+    """
+
+    ranked = Signal(int, int, object)
+    stopped_words = "Ordering the sort wall stopped"
+    light = True
+    #: Crops cut between two looks at :meth:`cancel` (about 0.1 s).
+    CHUNK = 64
+
+    def __init__(self, batch: Batch, groups: dict[int, list[tuple[int, int, int]]], cells: dict, *,
+                 tag: int = 0) -> None:
+        super().__init__()
+        self.batch, self.groups, self.cells, self.tag = batch, groups, cells, tag
+
+    def work(self) -> None:
+        for group, digits in self.groups.items():
+            for start in range(0, len(digits), self.CHUNK):  # cut in small steps, to stop soon when asked
+                if self.should_stop():
+                    return None
+                todo = [d for d in digits[start:start + self.CHUNK] if d[0] not in self.cells]
+                if todo:
+                    rank_group(self.batch, todo, cells=self.cells)
+            if self.should_stop():
+                return None
+            ranking: GroupRanking = rank_group(self.batch, digits, cells=self.cells)
+            self.ranked.emit(self.tag, group, ranking)
+        return None
 
 
 class LearnWorker(Worker):
@@ -260,7 +320,7 @@ class LearnWorker(Worker):
         except LearningCancelled:
             return None
         except RuntimeError as exc:
-            raise Refused(f"Learning from your corrections needs the held-out check digits to judge a new "
+            raise Refused(f"Learning from your corrections needs the 5,000 test digits it never saw to judge a new "
                           f"model: {exc}.") from exc
         except ValueError as exc:
             raise Refused(f"Cannot learn from this batch: {exc}.") from exc

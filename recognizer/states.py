@@ -141,6 +141,8 @@ __all__ = [
     "State",
     "STATES",
     "Reason",
+    "TURNED_PAGE",
+    "PAGE_NOTES",
     "REASON_WORDS",
     "DIGIT_REASONS",
     "NOT_A_DIGIT_MARK",
@@ -175,6 +177,11 @@ FAINT_LINES_WARNING = "the printed lines are faint"
 
 #: How the page warning of a skew beyond the limit begins (:func:`recognizer.page.boxes.find_fields`).
 SKEW_WARNING_START = "the page may be skewed by more than"
+#: A page fed upside down and turned by the reader (:mod:`recognizer.reading.orientation`): said on
+#: the page, but it puts no field in doubt (the turned reading is the surer one).
+TURNED_PAGE = "the page was upside down: it was turned and read the right way up"
+#: Page warnings that are notes only: they touch no field.
+PAGE_NOTES = frozenset({TURNED_PAGE})
 
 #: A field on a page with faint lines is touched when its value's chance of being
 #: wrong exceeds this share of what the threshold allows (our own choice, no source).
@@ -305,6 +312,8 @@ def warnings_touching(page_warnings: Sequence[str], *, box_doubts: Sequence[str]
     """
     touched = []
     for warning in page_warnings:
+        if warning in PAGE_NOTES:
+            continue
         if _warning_reason(warning) is not Reason.FAINT_LINES or box_doubts or near_limit(confidences, threshold):
             touched.append(warning)
     return tuple(touched)

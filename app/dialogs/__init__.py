@@ -7,6 +7,8 @@
   save it and use it for the batch.
 * :mod:`~app.dialogs.files`: the file choosers (scans, folder, batch, template,
   a new batch's name).
+* :mod:`~app.dialogs.template_choice`: the step of File > Open scans that chooses
+  the form template to read them with (the last one used or saved offered first).
 
 The form template editor, a window of its own, is in :mod:`app.views.template_editor`.
 """

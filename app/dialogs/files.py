@@ -1,5 +1,7 @@
 """The file choosers of the window: scans, a folder, a batch, a form template, a new batch's name.
 
+(Choosing the template for the scans being opened is :mod:`app.dialogs.template_choice`.)
+
 Each asks with Qt's file dialog and returns the path(s) chosen, or None (or an
 empty list) when the clerk cancels.
 """
@@ -8,13 +10,12 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from PySide6.QtWidgets import QFileDialog, QMessageBox, QWidget
+from PySide6.QtWidgets import QFileDialog, QWidget
 
 from recognizer.batch import SUFFIX
 from recognizer.scans.files import SCAN_SUFFIXES
 
-__all__ = ["ask_scans", "ask_folder", "ask_batch", "ask_template", "ask_form_scan", "ask_template_for_scans",
-           "ask_new_batch"]
+__all__ = ["ask_scans", "ask_folder", "ask_batch", "ask_template", "ask_form_scan", "ask_new_batch"]
 
 _SCAN_FILTER = "Scans (" + " ".join(f"*{s}" for s in sorted(SCAN_SUFFIXES)) + ");;All files (*)"
 _TEMPLATE_FILTER = "Form templates (*.json)"
@@ -35,29 +36,15 @@ def ask_batch(parent: QWidget) -> Path | None:
     return Path(name) if name else None
 
 
-def ask_template(parent: QWidget) -> Path | None:
-    name, _ = QFileDialog.getOpenFileName(parent, "Form template", "", _TEMPLATE_FILTER)
+def ask_template(parent: QWidget, folder: Path | None = None) -> Path | None:
+    """A form template file, looked for first in ``folder`` (e.g. the scans' folder, where the editor saves)."""
+    name, _ = QFileDialog.getOpenFileName(parent, "Form template", str(folder or ""), _TEMPLATE_FILTER)
     return Path(name) if name else None
 
 
 def ask_form_scan(parent: QWidget) -> Path | None:
     name, _ = QFileDialog.getOpenFileName(parent, "Scan of a blank (or filled) form", "", _SCAN_FILTER)
     return Path(name) if name else None
-
-
-def ask_template_for_scans(parent: QWidget) -> tuple[bool, Path | None]:
-    """Whether to read scans with a form template, and which: ``(go on, template file or None)``."""
-    box = QMessageBox(QMessageBox.Icon.Question, "Form template",
-                      "Read these scans with a form template? A template names and types the fields "
-                      "(dates, weights with decimals) and checks their rules.", parent=parent)
-    plain = box.addButton("Read without a template", QMessageBox.ButtonRole.RejectRole)
-    pick = box.addButton("Choose a template…", QMessageBox.ButtonRole.AcceptRole)
-    box.setDefaultButton(plain)
-    box.exec()
-    if box.clickedButton() is not pick:
-        return True, None
-    template = ask_template(parent)
-    return template is not None, template
 
 
 def ask_new_batch(parent: QWidget, scans: list[Path]) -> Path | None:

@@ -41,26 +41,39 @@ def _pct(x: float) -> str:
     return "–" if x is None or math.isnan(x) else f"{100 * x:.1f} %"
 
 
+#: The library's words for its refusals, and a clerk's.
+_PLAIN = (("held-out accuracy", "accuracy on the digits it never saw"),
+          ("held-back new samples", "checked digits kept aside"), ("held-back", "kept aside"),
+          ("held-out", "never seen"), ("new samples", "checked digits"))
+
+
+def plain_reason(reason: str) -> str:
+    """A refusal of the retraining library in a clerk's words (no "held-out", "samples")."""
+    for words, plain in _PLAIN:
+        reason = reason.replace(words, plain)
+    return reason
+
+
 def result_in_words(result: RetrainResult) -> str:
     """The before/after figures of a retraining as a short HTML text."""
     f = result.figures
     before, after = f["before"], f["after"]
     lines = [
         f"Learned from <b>{f['n_learned']:,}</b> digits a person corrected or confirmed in this batch; "
-        f"<b>{f['n_held_back']:,}</b> more were held back to test it.",
+        f"<b>{f['n_held_back']:,}</b> more were kept aside to test it.",
         "<table cellspacing='6'><tr><th></th><th>before</th><th>after</th></tr>"
-        f"<tr><td>Accuracy on this batch's held-back checked digits ({f['n_held_back']:,})</td>"
+        f"<tr><td>Accuracy on this batch's checked digits kept aside ({f['n_held_back']:,})</td>"
         f"<td>{_pct(before['new_samples'])}</td><td><b>{_pct(after['new_samples'])}</b></td></tr>"
-        f"<tr><td>Accuracy on {f['n_heldout']:,} handwritten digits it never saw (MNIST)</td>"
+        f"<tr><td>Accuracy on {f['n_heldout']:,} handwritten digits it never saw (a standard test set)</td>"
         f"<td>{_pct(before['heldout'])}</td><td><b>{_pct(after['heldout'])}</b></td></tr></table>",
     ]
     if result.accepted:
         tolerance = result.model.metadata.get("retraining", {}).get("settings", {}).get("heldout_tolerance", 0.0)
-        lines.append("The new model is not worse on this batch's held-back digits, and on the digits it never "
+        lines.append("The new model is not worse on this batch's digits kept aside, and on the digits it never "
                      f"saw it stays within {100 * tolerance:.1f} points of the old one, so it can be used.")
     else:
         lines.append("<b>The new model is not used: it is worse.</b> "
-                     + " ".join(f"{r[0].upper()}{r[1:]}." for r in result.reasons)
+                     + " ".join(f"{r[0].upper()}{r[1:]}." for r in map(plain_reason, result.reasons))
                      + " Check more fields (more digits of more writers), then try again.")
     return "<p>" + "</p><p>".join(lines) + "</p>"
 
@@ -280,8 +293,11 @@ class RetrainDialog(QDialog):
 
     def _on_reread(self, summary: RereadSummary) -> None:
         self.summary = summary
+        missing = getattr(summary, "missing", {}) or {}
+        gone = (f" {len(missing):,} scan file(s) needed for it were not found ({', '.join(sorted(map(str, missing))[:3])}"
+                f"{'…' if len(missing) > 3 else ''}); their boxes keep their reading." if missing else "")
         self.step.setText(f"This batch now uses {self.result.model.version}: {summary.digits:,} unchecked digits "
-                          f"read again, {summary.changed:,} of them differently.")
+                          f"read again, {summary.changed:,} of them differently.{gone}")
         self._fit()
 
     def _reread_ended(self) -> None:

@@ -31,7 +31,7 @@ from recognizer.learning import LearningRound
 __all__ = ["ModelPanel", "RejectCurve", "reject_points", "retraining_in_words", "learning_in_words",
            "RETRAIN_TIP", "LEARN_TIP"]
 
-RETRAIN_TIP = ("Fine-tune the model on the digits corrected or confirmed in this batch, see how it does "
+RETRAIN_TIP = ("Teach the model the handwriting of the digits corrected or confirmed in this batch, see how it does "
                "before and after, and choose whether to use it (Ctrl+Shift+R)")
 
 
@@ -61,14 +61,14 @@ def retraining_in_words(model: DigitModel) -> str:
     learning = model.metadata.get("learning")
     if learning:
         return (f"learned while checking {learning.get('batch', 'this batch')} (round {learning.get('round', '?')}), "
-                f"from {r['n_samples']:,} checked digits; accuracy on held-back checked digits "
+                f"from {r['n_samples']:,} checked digits; accuracy on checked digits kept aside "
                 f"{100 * r['before']['new_samples']:.1f} % → {100 * r['after']['new_samples']:.1f} %, "
-                f"on held-out digits {100 * r['before']['heldout']:.1f} % → {100 * r['after']['heldout']:.1f} %")
+                f"on digits it never saw {100 * r['before']['heldout']:.1f} % → {100 * r['after']['heldout']:.1f} %")
     files = ", ".join(b.get("file", "?") for b in r.get("batches", [])) or "batches"
     before, after = r["before"], r["after"]
     return (f"from {model.metadata.get('parent', '?')} on {r['n_learned']:,} checked digits of {files}; "
-            f"accuracy on held-back checked digits {100 * before['new_samples']:.1f} % → "
-            f"{100 * after['new_samples']:.1f} %, on held-out digits {100 * before['heldout']:.1f} % → "
+            f"accuracy on checked digits kept aside {100 * before['new_samples']:.1f} % → "
+            f"{100 * after['new_samples']:.1f} %, on digits it never saw {100 * before['heldout']:.1f} % → "
             f"{100 * after['heldout']:.1f} %")
 
 
@@ -78,6 +78,16 @@ def reject_points(model: DigitModel) -> list[tuple[float, float]]:
     return [(float(r["rejected"]), 1.0 - float(r["residual_error"])) for r in table]
 
 
+def _touches(rect: QRectF, points: list[QPointF], radius: float = 5.0) -> bool:
+    """Whether the curve through ``points`` (its line and dots, ``radius`` wide) touches ``rect``."""
+    grown = rect.adjusted(-radius, -radius, radius, radius)
+    for a, b in zip(points, points[1:] or points):
+        for k in range(21):
+            if grown.contains(a + (b - a) * (k / 20)):
+                return True
+    return False
+
+
 class RejectCurve(QWidget):
     """Accuracy of the digits accepted automatically against the share sent to a person."""
 
@@ -85,6 +95,10 @@ class RejectCurve(QWidget):
         super().__init__(parent)
         self.points: list[tuple[float, float]] = []
         self.target: float | None = None
+        #: Where the dashed line's label was drawn last (None: no line), kept clear of the curve.
+        self.target_label_rect: QRectF | None = None
+        #: Where the curve's points were drawn last.
+        self.dots: list[QPointF] = []
         self.setMinimumSize(300, 240)
         self.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Expanding)
         self.setAccessibleName("Accuracy against share checked by a person")
@@ -103,7 +117,7 @@ class RejectCurve(QWidget):
         small.setPixelSize(11)
         p.setFont(small)
         if not self.points:
-            p.drawText(self.rect(), Qt.AlignmentFlag.AlignCenter, "This model file carries no held-out figures.")
+            p.drawText(self.rect(), Qt.AlignmentFlag.AlignCenter, "This model file has no test figures (how it read digits it never saw).")
             p.end()
             return
         x_max = max(0.05, max(x for x, _ in self.points))
@@ -137,20 +151,43 @@ class RejectCurve(QWidget):
         p.drawText(QRectF(-plot.height() / 2, -10, plot.height(), 16), Qt.AlignmentFlag.AlignCenter,
                    "accuracy of digits not checked")
         p.restore()
-        if self.target is not None and 1 - self.target >= y_lo:
-            p.setPen(QPen(QColor("#D55E00"), 1.5, Qt.PenStyle.DashLine))
-            p.drawLine(at(0, 1 - self.target), at(x_max, 1 - self.target))
-            p.drawText(at(x_max * 0.5, 1 - self.target) + QPointF(0, -4),
-                       f"batch target: {100 * (1 - self.target):.2f} % right")
+        dots = self.dots = [at(x, y) for x, y in self.points]
         path = QPainterPath(at(*self.points[0]))
         for x, y in self.points[1:]:
             path.lineTo(at(x, y))
+        self.target_label_rect = None
+        if self.target is not None and 1 - self.target >= y_lo:
+            p.setPen(QPen(QColor("#D55E00"), 1.5, Qt.PenStyle.DashLine))
+            line = at(0, 1 - self.target).y()
+            p.drawLine(QPointF(plot.left(), line), QPointF(plot.right(), line))
+            text = self.target_words()
+            box = p.fontMetrics().boundingRect(text).adjusted(-4, -2, 4, 2)
+            w, h = box.width(), box.height()
+            # beside the line where the curve is not: right end below it (the curve has passed above the
+            # line there), left end above it (the curve is still below), then the other two; if the curve
+            # touches all four (a small plot), the nearest clear place further from the line
+            left, right = plot.left() + 4, plot.right() - w - 4
+            spots = [QRectF(right, line + 3, w, h), QRectF(left, line - h - 3, w, h),
+                     QRectF(right, line - h - 3, w, h), QRectF(left, line + 3, w, h)]
+            for step in range(4, int(plot.height()), 4):
+                spots += [QRectF(right, line + 3 + step, w, h), QRectF(left, line - h - 3 - step, w, h)]
+            inside = [r for r in spots if plot.contains(r)] or spots
+            rect = next((r for r in inside if not _touches(r, dots)), inside[0])
+            p.fillRect(rect, QColor(255, 255, 255, 230))
+            p.setPen(QColor("#A04000"))
+            p.drawText(rect, Qt.AlignmentFlag.AlignCenter, text)
+            self.target_label_rect = rect
         p.setPen(QPen(QColor("#0072B2"), 2.5))
+        p.setBrush(Qt.BrushStyle.NoBrush)
         p.drawPath(path)
         p.setBrush(QColor("#0072B2"))
         for x, y in self.points:
             p.drawEllipse(at(x, y), 3.5, 3.5)
         p.end()
+
+    def target_words(self) -> str:
+        """The dashed line's label: the batch's setting, in a clerk's words."""
+        return f"your setting: {100 * (1 - self.target):.2f} % right"
 
 
 class ModelPanel(QWidget):
@@ -232,7 +269,7 @@ class ModelPanel(QWidget):
         self.retrain_button.setToolTip(RETRAIN_TIP)
         layout.addWidget(self.retrain_button)
         self.name.setAccessibleName("Model name")
-        self.heldout.setAccessibleName("Held-out accuracy")
+        self.heldout.setAccessibleName("Accuracy on digits it was not trained on")
 
     def show_learning(self, settings: BatchSettings | None, checked: int | None, *, running: str | None = None) -> None:
         """Learning during the batch: the check box, when the next round comes (or the step
@@ -263,10 +300,11 @@ class ModelPanel(QWidget):
         self.retrained.setText(retraining_in_words(model))
         ev = model.metadata.get("evaluation") or {}
         if "accuracy" in ev:
-            self.heldout.setText(f"{100 * ev['accuracy']:.1f} % of {ev.get('n', '?'):,} digits"
-                                 f"<br><small>{ev.get('source', '')}</small>")
+            self.heldout.setText(f"{100 * ev['accuracy']:.1f} % right, on {ev.get('n', '?'):,} handwritten test "
+                                 "digits it never saw")
+            self.heldout.setToolTip(f"The test digits: {ev.get('source', 'not named in the model file')}")
         else:
-            self.heldout.setText("no held-out figures in the model file")
+            self.heldout.setText("not measured (the model file has no test figures)")
         if settings is not None and settings.threshold is not None:
             how = (f"at most {100 * settings.target_error:.2f} % wrong among the digits not checked"
                    if settings.threshold_source == "target" else "a confidence limit set by hand")

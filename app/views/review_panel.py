@@ -19,7 +19,9 @@ Keys (the panel has the focus)::
 
 The cursor starts on the first box the reader was unsure of (if none, the
 first written box), so typing the one wrong digit replaces that digit. The
-boxes scale down to fit the panel's width instead of widening it. Enter on a
+boxes scale down to fit the panel's width instead of widening it; where they
+would grow too small to read (an 8-box date on a narrow panel) they go on two
+rows instead. Enter on a
 field a person already handled (shown again from the page, or restored on
 reopening) writes nothing and goes on; a restored place that is done goes on
 to the next field still to check.
@@ -50,6 +52,7 @@ place and guarded actions share one field-shown state and are kept together.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -59,6 +62,7 @@ from PySide6.QtGui import QColor, QFont, QPainter, QPen, QPixmap
 from PySide6.QtWidgets import (
     QComboBox,
     QFrame,
+    QGridLayout,
     QHBoxLayout,
     QLabel,
     QSizePolicy,
@@ -141,6 +145,8 @@ class BoxTile(QWidget):
     SIZE = QSize(86, 150)
     #: The smallest crop side when many boxes share the panel's width.
     MIN_SIDE = 40
+    #: Below this crop side a field's boxes go on two rows (or more) rather than shrink further.
+    LEGIBLE_SIDE = 64
 
     def __init__(self, parent=None) -> None:
         super().__init__(parent)
@@ -298,11 +304,10 @@ class ReviewPanel(QFrame):
         layout.addWidget(self.strip)
         self.tiles_box = QWidget()  # its width follows the panel's, never the other way round
         self.tiles_box.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Fixed)
-        self.tiles_row = QHBoxLayout(self.tiles_box)
+        self.tiles_row = QGridLayout(self.tiles_box)  # one row, or more when the boxes would be too small
         self.tiles_row.setContentsMargins(0, 0, 0, 0)
         self.tiles_row.setSpacing(6)
-        self.tiles_row.addStretch(1)
-        self.tiles_row.addStretch(1)
+        self._tile_rows = (0, 0)  # (boxes, per row) as laid out now
         layout.addWidget(self.tiles_box)
         self.tiles: list[BoxTile] = []
         self.value_label = QLabel("")
@@ -571,8 +576,8 @@ class ReviewPanel(QFrame):
         view = self.view
         while len(self.tiles) < (len(view.digits) if view else 0):
             tile = BoxTile(self)
-            self.tiles_row.insertWidget(len(self.tiles) + 1, tile)
             self.tiles.append(tile)
+            self._tile_rows = (0, 0)  # placed by _fit_tiles
         for i, tile in enumerate(self.tiles):
             tile.setVisible(view is not None and i < len(view.digits))
         if view is None:
@@ -609,14 +614,39 @@ class ReviewPanel(QFrame):
                                  + ("  <i>(typed, Enter saves)</i>" if self.edit.touched else ""))
 
     def _fit_tiles(self) -> None:
-        """Scale the boxes down so that all of the field's boxes fit the panel's width."""
+        """Fit the field's boxes to the panel's width: scaled down on one row while they stay legible
+        (:attr:`BoxTile.LEGIBLE_SIDE`), else on two rows or more (an 8-box date: DDMM over YYYY)."""
         n = len(self.view.digits) if self.view is not None else 0
         if not n:
             return
         spacing = self.tiles_row.spacing()
-        side = (self.tiles_box.width() - spacing * (n + 1)) // n
+        width = self.tiles_box.width()
+        for rows in range(1, n + 1):
+            per_row = math.ceil(n / rows)
+            side = (width - spacing * (per_row + 1)) // per_row
+            if side >= BoxTile.LEGIBLE_SIDE or per_row == 1:
+                break
+        if self._tile_rows != (n, per_row):
+            self._place_tiles(n, per_row)
         for tile in self.tiles:
             tile.set_side(side)
+        rows = math.ceil(n / per_row)
+        height = rows * self.tiles[0].height() + (rows - 1) * spacing
+        if self.tiles_box.height() != height or self.tiles_box.minimumHeight() != height:
+            self.tiles_box.setFixedHeight(height)  # every row in full, never drawn over the next
+
+    def _place_tiles(self, n: int, per_row: int) -> None:
+        """Put the first ``n`` tiles on rows of ``per_row``, centred (stretches either side)."""
+        grid = self.tiles_row
+        for tile in self.tiles:
+            grid.removeWidget(tile)
+        for column in range(grid.columnCount()):
+            grid.setColumnStretch(column, 0)
+        for i, tile in enumerate(self.tiles[:n]):
+            grid.addWidget(tile, i // per_row, 1 + i % per_row)
+        grid.setColumnStretch(0, 1)
+        grid.setColumnStretch(per_row + 1, 1)
+        self._tile_rows = (n, per_row)
 
     def resizeEvent(self, event) -> None:  # noqa: N802 (Qt name)
         super().resizeEvent(event)

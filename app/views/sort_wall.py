@@ -2,7 +2,14 @@
 reader saw, each group led by the crops least like the group's typical shape.
 
 Within a group the crops come in the order of :func:`recognizer.review.rank_group`:
-the least like the group's typical shape first. The typical shape itself (the
+the least like the group's typical shape first. Ranking cuts every crop again
+the first time (about 1.5 ms a crop, seconds for a few thousand), so it runs in
+a :class:`app.workers.RankWorker` started through ``start_job`` (set by the
+window: the controller's, so the batch is not closed under it): the wall shows
+every group at once in the review queue's order ("ordering…" in its title), and
+each group takes its order, its odd marks and its typical shape when its
+ranking arrives, keeping the clerk's selection. Without ``start_job`` (a wall
+on its own) the ranking is done at once, as the wall is built. The typical shape itself (the
 group's mean model input) is drawn beside the group, labelled "typical 7". The
 crops far from it are marked *odd* without relying on colour: they come first,
 with a thick frame, their rank in a badge and the word "odd" under them.
@@ -34,7 +41,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 
-from PySide6.QtCore import QSize, Qt, Signal
+from PySide6.QtCore import QItemSelectionModel, QSize, Qt, Signal, Slot
 from PySide6.QtGui import QIcon
 from PySide6.QtWidgets import (
     QAbstractItemView,
@@ -51,7 +58,7 @@ from PySide6.QtWidgets import (
 )
 
 from recognizer.batch import Batch, Change
-from recognizer.batch.queries import digit_states
+from recognizer.batch.queries import digit_states, pages_of_fields
 from recognizer.digits.model import CLASSES, NOT_A_DIGIT
 from recognizer.review import (
     TO_CHECK,
@@ -67,6 +74,7 @@ from recognizer.review import (
 from recognizer.states import NOT_A_DIGIT_MARK
 
 from ..batch_access import SWITCH_WORDS, ImageCache, SwitchGuard
+from ..workers import Job, RankWorker, Worker
 from .wall_tiles import TILE, crop_tile, typical_tile
 
 __all__ = ["SortWall", "WALL_HELP"]
@@ -77,7 +85,9 @@ WALL_HELP = ("Select crops (click, Shift/Ctrl+click, arrows) · type 0-9 for the
 _DIGIT = Qt.ItemDataRole.UserRole
 _PLACE = Qt.ItemDataRole.UserRole + 1
 _RANK = Qt.ItemDataRole.UserRole + 2
+_WHERE = Qt.ItemDataRole.UserRole + 3
 _TEXT_ROW = 16  # room for "odd" under a tile
+_ORDERING = " · ordering…"
 
 
 def _group_of(prediction: str) -> int:
@@ -139,20 +149,16 @@ class _GroupList(QListWidget):
 class _Group(QWidget):
     """A group on the wall: its typical shape, title and "All are" button above its crops."""
 
-    def __init__(self, wall: SortWall, group: int, ranking: GroupRanking) -> None:
+    def __init__(self, wall: SortWall, group: int) -> None:
         super().__init__()
         self.group = group
+        #: Whether the group's ranking has arrived (its order, odd marks and typical shape shown).
+        self.ranked = False
         layout = QVBoxLayout(self)
         layout.setContentsMargins(0, 6, 0, 0)
         header = QHBoxLayout()
         self.typical = QLabel()
         self.typical_caption = QLabel()
-        if ranking.typical is not None:
-            self.typical.setPixmap(typical_tile(ranking.typical))
-            self.typical_caption.setText(f"typical {_as_read(group)}")
-            self.typical.setToolTip(f"The typical {_as_read(group)} of this group (the mean of its crops, as the "
-                                    f"model sees them); the crops least like it come first")
-            self.typical.setAccessibleName(f"Typical {_as_read(group)}")
         shape = QVBoxLayout()
         shape.addWidget(self.typical, 0, Qt.AlignmentFlag.AlignHCenter)
         shape.addWidget(self.typical_caption, 0, Qt.AlignmentFlag.AlignHCenter)
@@ -171,6 +177,15 @@ class _Group(QWidget):
         layout.addLayout(header)
         self.list = _GroupList(wall, group)
         layout.addWidget(self.list)
+
+    def show_typical(self, ranking: GroupRanking) -> None:
+        self.ranked = True
+        if ranking.typical is not None:
+            self.typical.setPixmap(typical_tile(ranking.typical))
+            self.typical_caption.setText(f"typical {_as_read(self.group)}")
+            self.typical.setToolTip(f"The typical {_as_read(self.group)} of this group (the mean of its crops, as "
+                                    f"the model sees them); the crops least like it come first")
+            self.typical.setAccessibleName(f"Typical {_as_read(self.group)}")
 
 
 class SortWall(QScrollArea):
@@ -206,6 +221,10 @@ class SortWall(QScrollArea):
         self._auto = False
         #: Set by the window: keeps actions away from a model switch.
         self.guard: SwitchGuard | None = None
+        #: Set by the window (the controller's): runs the ranking in a worker. None: rank while building.
+        self.start_job: Callable[[Worker], Job] | None = None
+        self._ranker: RankWorker | None = None
+        self._build = 0
         #: Asks (title, question, details) -> yes; a question box by default (tests may replace it).
         self.ask: Callable[[str, str, str], bool] = self._ask_box
         self.question_box: QMessageBox | None = None
@@ -217,6 +236,7 @@ class SortWall(QScrollArea):
 
     def set_batch(self, batch: Batch | None, cache: ImageCache | None) -> None:
         if batch is not self.batch:
+            self._stop_ranking()
             self.touched, self._cells = set(), {}
         self.batch, self.cache = batch, cache
         self._stale = True
@@ -235,8 +255,11 @@ class SortWall(QScrollArea):
     # ---- building
 
     def load(self) -> None:
-        """Build the wall from the review queue (digits to check, grouped by the digit read, oddest first)."""
+        """Build the wall from the review queue (digits to check, grouped by the digit read), then order
+        each group, the oddest first (in a worker when ``start_job`` is set)."""
         self._stale = False
+        self._stop_ranking()
+        self._build += 1
         self._seen = -1 if self.guard is None or self.guard.busy else self.guard.generation
         body = QWidget()
         self._layout = QVBoxLayout(body)
@@ -249,16 +272,13 @@ class SortWall(QScrollArea):
         for item in items:
             by_group.setdefault(_group_of(item.read), []).append(item)
         for group in sorted(by_group):  # digit order, "not a digit" last
-            members = by_group[group]
-            ranking = rank_group(self.batch, [(i.digit_id, i.field_id, i.box) for i in members], cells=self._cells)
-            box = _Group(self, group, ranking)
+            box = _Group(self, group)
             self._layout.addWidget(box)
             self._boxes[group], self.groups[group] = box, box.list
             box.list.itemSelectionChanged.connect(lambda lst=box.list: self._selection_changed(lst))
             box.list.currentItemChanged.connect(self._current_changed)
-            info = {i.digit_id: i for i in members}
-            for crop in ranking.crops:
-                self._add(box.list, info[crop.digit_id], crop, group)
+            for item in by_group[group]:
+                self._add(box.list, item)
         self._empty = QLabel("No single digits left to check.")
         self._empty.setVisible(not self.groups)
         self._layout.addWidget(self._empty)
@@ -267,28 +287,107 @@ class SortWall(QScrollArea):
         self._body = body
         self._retitle()
         self._fit()
+        places = {g: [(i.digit_id, i.field_id, i.box) for i in members] for g, members in by_group.items()}
+        if not places:
+            return
+        if self.start_job is None:
+            for group, digits in places.items():
+                self._ranked(self._build, group, rank_group(self.batch, digits, cells=self._cells))
+            return
+        self._ranker = RankWorker(self.batch, places, self._cells, tag=self._build)
+        self._ranker.ranked.connect(self._ranked)
+        self._ranker.failed.connect(self._rank_failed)
+        self.start_job(self._ranker)
 
-    def _add(self, lst: _GroupList, item: ReviewItem, crop: RankedCrop, group: int) -> None:
+    @property
+    def ordering(self) -> bool:
+        """Whether some group still waits for its ranking."""
+        return any(not box.ranked for box in self._boxes.values())
+
+    def _stop_ranking(self) -> None:
+        if self._ranker is not None:
+            self._ranker.cancel()
+            self._ranker = None
+
+    @Slot(int, int, object)
+    def _ranked(self, tag: int, group: int, ranking: GroupRanking) -> None:
+        """A group's ranking: put its crops in that order and mark the odd ones, keeping the selection."""
+        box, lst = self._boxes.get(group), self.groups.get(group)
+        if tag != self._build or box is None or lst is None:
+            return  # a ranking of an older build of the wall
+        box.show_typical(ranking)
+        selected = set(self._selected(lst))
+        current = lst.currentItem().data(_DIGIT) if lst.currentItem() is not None else None
+        entries = {}
+        self._auto = True
+        try:
+            while lst.count():
+                entry = lst.takeItem(0)
+                entries[entry.data(_DIGIT)] = entry
+            for crop in ranking.crops:
+                entry = entries.pop(crop.digit_id, None)
+                if entry is None:
+                    continue  # handled since the wall was built
+                self._mark(entry, crop, group)
+                lst.addItem(entry)
+            for entry in entries.values():  # not in the ranking (cannot happen; kept rather than lost)
+                lst.addItem(entry)
+            for row in range(lst.count()):
+                entry = lst.item(row)
+                digit_id = entry.data(_DIGIT)
+                if digit_id in selected:
+                    entry.setSelected(True)
+                if digit_id == current:
+                    lst.setCurrentItem(entry, QItemSelectionModel.SelectionFlag.NoUpdate)
+        finally:
+            self._auto = False
+        self._retitle()
+
+    def _rank_failed(self, message: str) -> None:
+        self._ranker = None
+        self.message.emit("The sort wall could not find the odd crops; it shows them in reading order. "
+                          + message.splitlines()[0])
+        for box in self._boxes.values():
+            box.ranked = True
+        self._retitle()
+
+    def _add(self, lst: _GroupList, item: ReviewItem) -> None:
         image = self.cache.crop(item.digit_id) if self.cache else None
-        entry = QListWidgetItem(QIcon(crop_tile(image, rank=crop.rank)), "odd" if crop.odd else "")
+        entry = QListWidgetItem(QIcon(crop_tile(image)), "")
         entry.setData(_DIGIT, item.digit_id)
-        entry.setData(_PLACE, (crop.page_id, crop.field_id, crop.box))
-        entry.setData(_RANK, crop.rank)
+        entry.setData(_PLACE, (item.field_id, item.box))
+        entry.setData(_RANK, 0)
         where = (f"{item.file.rsplit('/', 1)[-1]}, page {item.page}, field {item.field}, box {item.box + 1}: "
                  f"sure {100 * (item.confidence or 0):.1f} %")
+        entry.setToolTip(where)
+        entry.setData(_WHERE, where)
+        lst.addItem(entry)
+        self._items[item.digit_id] = entry
+
+    def _mark(self, entry: QListWidgetItem, crop: RankedCrop, group: int) -> None:
+        """Mark a crop odd (frame, rank badge, the word "odd", its tooltip) or plain, as its ranking says."""
+        was = entry.data(_RANK)
+        rank = crop.rank if crop.odd else 0
+        if rank != was:
+            image = self.cache.crop(crop.digit_id) if self.cache else None
+            entry.setIcon(QIcon(crop_tile(image, rank=rank)))
+            entry.setData(_RANK, rank)
+        entry.setText("odd" if crop.odd else "")
+        where = entry.data(_WHERE)
         if crop.odd:
             where = (f"Odd, {_ordinal(crop.rank)} least like the typical {_as_read(group)} "
                      f"({crop.score:.1f} times the usual distance). " + where)
+            self._odd[crop.digit_id] = crop.rank
+        else:
+            self._odd.pop(crop.digit_id, None)
         entry.setToolTip(where)
-        lst.addItem(entry)
-        self._items[item.digit_id] = entry
-        if crop.odd:
-            self._odd[item.digit_id] = crop.rank
 
     def _retitle(self) -> None:
         for group, lst in self.groups.items():
             odd = sum(1 for i in range(lst.count()) if lst.item(i).data(_RANK))
             title = _group_title(group, lst.count()) + (f" · {odd} odd first" if odd else "")
+            if not self._boxes[group].ranked:
+                title += _ORDERING
             self._boxes[group].title.setText(title)
             lst.setAccessibleName(title)
 
@@ -335,8 +434,11 @@ class SortWall(QScrollArea):
             self.touched.update(self._selected(lst))
 
     def _current_changed(self, current: QListWidgetItem | None, _previous=None) -> None:
-        if current is not None and current.data(_PLACE) is not None:
-            self.crop_selected.emit(*current.data(_PLACE))
+        if current is not None and current.data(_PLACE) is not None and self.batch is not None:
+            field_id, box = current.data(_PLACE)
+            pages = pages_of_fields(self.batch, [field_id])
+            if pages:
+                self.crop_selected.emit(next(iter(pages)), field_id, box)
 
     def on_change(self, change: Change) -> None:
         if self.batch is None:

@@ -163,13 +163,17 @@ class TemplateEditor(QDialog):
         Where Save writes; the template loaded from there has its version raised on saving.
     loaded : bool
         Whether ``template`` was read from ``path`` (then Save raises its version).
+    folder : path, optional
+        Where Save offers to write a template without ``path`` (the window gives the
+        folder of the batch and its scans); default: the current folder.
     """
 
     saved = Signal(Path)
 
     def __init__(self, template: Template, path: str | Path | None = None, *, loaded: bool = False,
-                 parent: QWidget | None = None) -> None:
+                 folder: str | Path | None = None, parent: QWidget | None = None) -> None:
         super().__init__(parent)
+        self.folder = Path(folder) if folder is not None else None
         self.setWindowTitle("Form template")
         self.setAccessibleName("Form template editor")
         self.template = template
@@ -359,10 +363,23 @@ class TemplateEditor(QDialog):
             label = QGraphicsSimpleTextItem(f.name)
             label.setFont(font)
             label.setBrush(QBrush(_SELECTED if chosen else _FIELD))
-            label.setPos(f.boxes[0].x0, f.boxes[0].y0 - font.pixelSize() * 1.35)
+            x0, y0 = min(b.x0 for b in f.boxes), min(b.y0 for b in f.boxes)
+            y1 = max(b.y1 for b in f.boxes)
+            # the name goes under the boxes, so the form's own printed caption above them stays readable;
+            # a name wider than the room before the next field on the same row is set smaller to fit
+            right = min((min(b.x0 for b in g.boxes) for g in self.template.fields
+                         if g is not f and min(b.x0 for b in g.boxes) > x0
+                         and min(b.y0 for b in g.boxes) < y1 and max(b.y1 for b in g.boxes) > y0), default=None)
+            gap = font.pixelSize() * 0.4
+            width = label.boundingRect().width()
+            if right is not None and x0 + width + gap > right:
+                small = QFont(font)
+                small.setPixelSize(max(int(font.pixelSize() * 0.6), int(font.pixelSize() * (right - gap - x0) / width)))
+                label.setFont(small)
+            label.setPos(x0, y1 + font.pixelSize() * 0.15)
             label.setZValue(2)
             backing = scene.addRect(label.sceneBoundingRect().adjusted(-3, -1, 3, 1), QPen(Qt.PenStyle.NoPen),
-                                    QBrush(QColor(255, 255, 255, 230)))
+                                    QBrush(QColor(255, 255, 255)))
             backing.setZValue(1)
             scene.addItem(label)
             self._outlines += [backing, label]
@@ -602,8 +619,8 @@ class TemplateEditor(QDialog):
         if self.path is None:
             from PySide6.QtWidgets import QFileDialog
 
-            name, _ = QFileDialog.getSaveFileName(self, "Save the template", f"{template.name}.json",
-                                                  "Form templates (*.json)")
+            default = f"{template.name}.json" if self.folder is None else str(self.folder / f"{template.name}.json")
+            name, _ = QFileDialog.getSaveFileName(self, "Save the template", default, "Form templates (*.json)")
             if not name:
                 return False
             self.path = Path(name)

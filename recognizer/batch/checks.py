@@ -16,8 +16,8 @@ checks it against its declared schema version before anything else reads it:
   box is four whole numbers), states are known states, confidences lie in 0..1,
   probabilities are 11 float32, every box a digit row names exists, and the
   fields a spot check drew exist.
-* **Images** (:func:`check_png`): a page image or a box crop is a PNG whose
-  header declares at most :data:`LIMITS` ``["image_pixels"]`` (an A3 page at
+* **Images** (:func:`check_image`): a page image or a box crop is a PNG or a
+  WebP (:mod:`recognizer.batch.images`) whose header declares at most :data:`LIMITS` ``["image_pixels"]`` (an A3 page at
   600 dpi is 70 million); it is checked before it is decoded.
 
 Each check raises :class:`ValueError` with the reason in plain words; the
@@ -41,7 +41,8 @@ from recognizer.digits.model import json_depth
 from recognizer.states import State
 
 __all__ = [
-    "LIMITS", "SETTING_NAMES", "check_png", "check_rows", "check_tables", "expected_tables", "holds_nothing",
+    "LIMITS", "SETTING_NAMES", "check_image", "check_png", "check_rows", "check_tables", "expected_tables",
+    "holds_nothing", "image_size",
     "load_json", "settings_values",
 ]
 
@@ -267,6 +268,20 @@ def check_rows(conn: sqlite3.Connection) -> None:
         raise ValueError("a digit names a box the field does not have")
     if "audits" in {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}:
         _check_audits(conn)
+    if "scale" in {r[1] for r in conn.execute("PRAGMA table_info(page_images)")}:
+        _check_page_images(conn)
+
+
+def _check_page_images(conn: sqlite3.Connection) -> None:
+    """Page image records (schema version 5): a scale in (0, 1], the full size whole numbers or none."""
+    row = conn.execute(
+        "SELECT page_id FROM page_images WHERE typeof(scale) NOT IN ('real', 'integer') OR NOT scale > 0 "
+        "OR scale > 1 OR (width IS NOT NULL AND (typeof(width) != 'integer' OR width NOT BETWEEN 1 AND ?)) "
+        "OR (height IS NOT NULL AND (typeof(height) != 'integer' OR height NOT BETWEEN 1 AND ?)) "
+        "OR (width IS NULL) != (height IS NULL) OR (width IS NOT NULL AND width * height > ?) LIMIT 1",
+        (LIMITS["coordinate"], LIMITS["coordinate"], LIMITS["image_pixels"])).fetchone()
+    if row is not None:
+        raise ValueError(f"the image of page {row[0]} has a scale or a page size of the wrong kind")
 
 
 def _check_audits(conn: sqlite3.Connection) -> None:
@@ -284,11 +299,31 @@ def _check_audits(conn: sqlite3.Connection) -> None:
 # --------------------------------------------------------------------------- images
 
 
-def check_png(data: Any) -> None:
-    """A stored image is a PNG of at most :data:`LIMITS` ``["image_pixels"]``, from its header."""
-    if not isinstance(data, bytes) or len(data) < 24 or data[:8] != _PNG or data[12:16] != b"IHDR":
-        raise ValueError("damaged image data in the batch file")
-    width, height = struct.unpack(">II", data[16:24])
+def image_size(data: Any) -> tuple[int, int]:
+    """(width, height) a stored image declares in its header: a PNG or a WebP (lossy, lossless or
+    extended); ValueError for anything else or a damaged header."""
+    if isinstance(data, bytes) and len(data) >= 24 and data[:8] == _PNG and data[12:16] == b"IHDR":
+        return struct.unpack(">II", data[16:24])
+    if isinstance(data, bytes) and len(data) >= 30 and data[:4] == b"RIFF" and data[8:12] == b"WEBP":
+        kind = data[12:16]
+        if kind == b"VP8 " and data[23:26] == b"\x9d\x01\x2a":
+            width, height = struct.unpack("<HH", data[26:30])
+            return width & 0x3FFF, height & 0x3FFF
+        if kind == b"VP8L" and data[20] == 0x2F:
+            bits = int.from_bytes(data[21:25], "little")
+            return (bits & 0x3FFF) + 1, ((bits >> 14) & 0x3FFF) + 1
+        if kind == b"VP8X":
+            return int.from_bytes(data[24:27], "little") + 1, int.from_bytes(data[27:30], "little") + 1
+    raise ValueError("damaged image data in the batch file")
+
+
+def check_image(data: Any) -> None:
+    """A stored image is a PNG or a WebP of at most :data:`LIMITS` ``["image_pixels"]``, from its header."""
+    width, height = image_size(data)
     if width * height > LIMITS["image_pixels"]:
         raise ValueError(f"an image in the batch file declares {width} x {height} pixels, more than a page "
                          f"may have ({LIMITS['image_pixels']:,})")
+
+
+#: The name of :func:`check_image` before batch files kept WebP images.
+check_png = check_image

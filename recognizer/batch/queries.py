@@ -35,6 +35,9 @@ __all__ = [
     "stored_files",
     "stored_pages",
     "page_dpi",
+    "PageSource",
+    "page_source",
+    "page_crops",
     "find_field_id",
     "field_place",
     "count_fields",
@@ -89,6 +92,42 @@ def stored_files(batch: Batch) -> list[StoredFile]:
 
 
 # --------------------------------------------------------------------------- pages
+
+
+@dataclass(frozen=True)
+class PageSource:
+    """Where a page came from: its scan file as given (``path``) and where it was when read
+    (``location``, None in batches older than format 5), the file's sha256 and size, the page's
+    number in it, the resolution it was read at and the template that read it (its label)."""
+
+    page_id: int
+    path: str
+    location: str | None
+    sha256: str | None
+    size: int | None
+    page: int | None
+    dpi: float | None
+    template: str | None
+
+
+def page_source(batch: Batch, page_id: int) -> PageSource:
+    """The scan file and page a stored page came from (KeyError: no such page)."""
+    rows = batch.rows("SELECT p.id, fl.path, fl.location, fl.sha256, fl.size, p.page, p.dpi, p.template "
+                      "FROM pages p JOIN files fl ON fl.id = p.file_id WHERE p.id = ?", (page_id,))
+    if not rows:
+        raise KeyError(f"no page {page_id}")
+    return PageSource(*rows[0])
+
+
+def page_crops(batch: Batch, page_id: int) -> dict[tuple[int, int, int, int], bytes]:
+    """The stored crop (image bytes) of every box of a page, by the box's edges (x0, y0, x1, y1)."""
+    crops = {}
+    for boxes, box, crop in batch.rows("SELECT f.boxes, d.box, d.crop_png FROM digits d JOIN fields f "
+                                       "ON f.id = d.field_id WHERE f.page_id = ?", (page_id,)):
+        edges = json.loads(boxes)[box]
+        crops[tuple(int(v) for v in edges)] = crop
+    return crops
+
 
 
 @dataclass(frozen=True)

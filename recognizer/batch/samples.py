@@ -1,28 +1,38 @@
 """Labelled samples from a batch: the boxes people corrected or confirmed, for retraining.
 
-Each box is cut again from the stored page exactly as the reader cuts it
+Each box is cut again exactly as the reader cut it
 (:func:`recognizer.page.cells.cut_cell`, then
-:func:`recognizer.digits.preprocess.to_model_input`), so the model learns from
-what it will see.
+:func:`recognizer.digits.preprocess.to_model_input`), from its stored crop or
+the original scan (:class:`StoredPages`), so the model learns from what it
+will see.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
+import os
 from collections import OrderedDict
 from collections.abc import Sequence
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
-from recognizer.batch.queries import page_dpi
-from recognizer.batch.store import Batch, decode_png
+from recognizer.batch.queries import PageSource, page_crops, page_dpi, page_source
+from recognizer.batch.store import Batch, PageImage, decode_png
 from recognizer.digits.model import NOT_A_DIGIT
 from recognizer.digits.retrain import LabelledCells
-from recognizer.page.boxes import Box
+from recognizer.forms.registration import Registrar, match_templates
+from recognizer.forms.template import Template
+from recognizer.page.boxes import Box, find_fields, warp_like
 from recognizer.page.cells import Cell, cut_cell
+from recognizer.page.dropout import split_dropout
+from recognizer.scans.files import DEFAULT_PDF_DPI, Page, ScanProblem, load_page
 
-__all__ = ["SampleRef", "StoredPages", "labelled_samples", "batch_cells", "gather_cells"]
+__all__ = [
+    "SampleRef", "StoredPages", "labelled_samples", "batch_cells", "gather_cells", "find_original", "reader_page",
+]
 
 
 @dataclass(frozen=True)
@@ -48,11 +58,12 @@ def labelled_samples(
     crops : list of (h, w) uint8 ndarray
         The box crops as read (0 = ink, 255 = paper).
     cells : list of (28, 28) float32 ndarray, 0..1, or None
-        The model input of each box, cut again from the stored page image as
-        the reader cuts it (:func:`recognizer.page.cells.cut_cell` at the page's
-        dpi; white ink on black, MNIST layout). None when the box comes out
-        blank on re-cutting, or its re-cut crop is not the size of the stored
-        crop (the page and the box no longer agree): nothing to learn from.
+        The model input of each box, cut again as the reader cuts it
+        (:class:`StoredPages`: :func:`recognizer.page.cells.cut_cell` at the
+        page's dpi; white ink on black, MNIST layout). None when the box comes
+        out blank on re-cutting, cannot be cut again (no usable crop, original
+        scan or exact page), or its re-cut crop is not the stored crop (the
+        page and the box no longer agree): nothing to learn from.
     labels : (n,) int64 ndarray
         Class index: 0-9 for a digit, :data:`recognizer.digits.model.NOT_A_DIGIT`
         for a mark a person said is not a digit (value set to empty).
@@ -78,35 +89,176 @@ def labelled_samples(
     cells = []
     for r, crop in zip(rows, crops):
         cell = pages.cell(r["page_id"], json.loads(r["boxes"])[r["box"]])
-        cells.append(None if cell is None or cell.blank or cell.crop.shape != crop.shape else cell.mnist)
+        cells.append(None if cell is None or cell.blank or not _same_crop(cell.crop, crop) else cell.mnist)
     labels = np.array([int(r["value"]) if r["value"] else NOT_A_DIGIT for r in rows], dtype=np.int64)
     refs = [SampleRef(r["id"], r["path"], r["page"], r["name"], r["box"], r["state"], r["reviewer"]) for r in rows]
     return crops, cells, labels, refs
 
 
-class StoredPages:
-    """Boxes cut again from a batch's stored page images, exactly as the reader cuts them.
+def _same_crop(cut: np.ndarray, stored: np.ndarray) -> bool:
+    """A crop cut again is the stored one: same size, and (cut from a scan or page decoded anew) the
+    same pixels but for a grey level or two on a few (common practice, no source)."""
+    if cut.shape != stored.shape:
+        return False
+    return bool(np.mean(np.abs(cut.astype(np.int16) - stored)) <= 2.0)
 
-    The one home of re-cutting (retraining samples here, re-reading with
-    another model in :mod:`recognizer.review.reread`). The last few page images
-    are kept decoded.
+
+@dataclass
+class _Page:
+    """What :class:`StoredPages` keeps of one page: its dpi, its boxes' stored crops, and the full page
+    once it was needed (``False``: not looked for yet; None: not to be had)."""
+
+    dpi: float | None
+    crops: dict[tuple[int, int, int, int], bytes]
+    full: np.ndarray | None | bool = False
+
+
+class StoredPages:
+    """Boxes cut again exactly as the reader cut them, at full resolution.
+
+    The one home of re-cutting (retraining samples here, learning during the
+    batch, re-reading with another model in :mod:`recognizer.review.reread`).
+    A box is cut, in this order of preference, from
+
+    1. its stored crop: the box and the margin the reader cut around it, kept
+       exactly (:mod:`recognizer.batch.images`). The cell depends on the crop
+       alone, so this is the reader's model input, bit for bit, without the
+       scan; used when the crop has the margin the cutter uses today;
+    2. the original scan, when it is still where it was read (its absolute
+       location, else the path as given, else that path beside the batch) and
+       its size and sha256 are the ones recorded: the page is loaded and
+       deskewed (or registered to its template) again as the reader does and
+       must come out the size of the stored page;
+    3. the stored page image, when it is the page exactly (a batch older than
+       format 5, or a bitonal page).
+
+    Otherwise the box has no cell (None), and :attr:`missing` names the scan
+    file that was needed and why it could not be used. The last few pages are
+    kept.
     """
 
-    def __init__(self, batch: Batch, *, keep: int = 4) -> None:
+    def __init__(self, batch: Batch, *, keep: int = 4, originals: bool = True) -> None:
         self.batch = batch
         self.keep = keep
-        self._pages: OrderedDict[int, tuple[np.ndarray | None, float]] = OrderedDict()
+        self.originals = originals
+        #: Scan files needed but not found or changed: path as given -> the reason.
+        self.missing: dict[str, str] = {}
+        #: How many cells came from each source: "crop", "original", "page".
+        self.sources: dict[str, int] = {"crop": 0, "original": 0, "page": 0}
+        self._pages: OrderedDict[int, _Page] = OrderedDict()
 
     def cell(self, page_id: int, edges: Sequence[int]) -> Cell | None:
-        """The cell of the box ``edges`` (x0, y0, x1, y1) on page ``page_id``; None without a stored image."""
+        """The cell of the box ``edges`` (x0, y0, x1, y1) on page ``page_id``; None when it cannot be cut."""
+        page = self._page(page_id)
+        if page.dpi is None:
+            return None
+        box = Box(*(int(v) for v in edges))
+        data = page.crops.get((box.x0, box.y0, box.x1, box.y1))
+        if data is not None:
+            cell = _from_crop(decode_png(data, self.batch.path), box, page.dpi)
+            if cell is not None:
+                self.sources["crop"] += 1
+                return cell
+        if page.full is False:
+            page.full = self._full_page(page_id)
+        if page.full is None:
+            return None
+        return cut_cell(page.full, box, dpi=page.dpi)
+
+    def _page(self, page_id: int) -> _Page:
         if page_id in self._pages:
             self._pages.move_to_end(page_id)
         else:
-            self._pages[page_id] = (self.batch.page_image(page_id), page_dpi(self.batch, page_id))
+            self._pages[page_id] = _Page(page_dpi(self.batch, page_id), page_crops(self.batch, page_id))
             while len(self._pages) > self.keep:
                 self._pages.popitem(last=False)
-        image, dpi = self._pages[page_id]
-        return None if image is None else cut_cell(image, Box(*edges), dpi=dpi)
+        return self._pages[page_id]
+
+    def _full_page(self, page_id: int) -> np.ndarray | None:
+        """The page as the reader cut it, from the original scan or an exact stored image; None without."""
+        stored = self.batch.stored_page(page_id)
+        if stored is None:
+            return None
+        if self.originals:
+            image = self._original(page_id, stored)
+            if image is not None:
+                self.sources["original"] += 1
+                return image
+        if stored.exact:
+            self.sources["page"] += 1
+            return stored.image
+        return None
+
+    def _original(self, page_id: int, stored: PageImage) -> np.ndarray | None:
+        source = page_source(self.batch, page_id)
+        if source.sha256 is None or source.page is None or source.dpi is None:
+            return None
+        path, reason = find_original(source, self.batch.path)
+        if path is None:
+            self.missing[source.path] = reason
+            return None
+        settings = self.batch.settings
+        page = load_page(path, source.page, pdf_dpi=settings.pdf_dpi or DEFAULT_PDF_DPI)
+        templates = self.batch.templates()
+        if isinstance(page, ScanProblem) or (source.template and source.template not in templates):
+            self.missing[source.path] = "it no longer reads as it did"
+            return None
+        image = reader_page(page, templates.get(source.template) if source.template else None)
+        if image is None or image.shape != (stored.height, stored.width):
+            self.missing[source.path] = "it no longer reads as it did"
+            return None
+        return image
+
+
+def find_original(source: PageSource, batch_path: str | os.PathLike) -> tuple[Path | None, str]:
+    """The scan file a page came from, if it is still there unchanged (size and sha256 as recorded);
+    else None and why not ("not found", "changed since it was read")."""
+    candidates = [Path(p) for p in (source.location, source.path) if p]
+    if source.path and not Path(source.path).is_absolute():
+        candidates.append(Path(batch_path).parent / source.path)
+    changed = False
+    for path in dict.fromkeys(candidates):
+        try:
+            if not path.is_file():
+                continue
+            if source.size is not None and path.stat().st_size != source.size:
+                changed = True
+                continue
+            h = hashlib.sha256()
+            with open(path, "rb") as fh:
+                for chunk in iter(lambda: fh.read(1 << 20), b""):
+                    h.update(chunk)
+        except OSError:
+            continue
+        if h.hexdigest() == source.sha256:
+            return path, ""
+        changed = True
+    return None, "changed since it was read" if changed else "not found"
+
+
+def reader_page(page: Page, template: Template | None) -> np.ndarray | None:
+    """The full-resolution page the reader cut the boxes from (:class:`recognizer.reading.page.PageReader`):
+    registered to ``template``, or deskewed as the boxes were found; for a form printed in a
+    dropout colour, the pen's ink deskewed alike. None when the page no longer registers."""
+    if template is not None:
+        match = match_templates(page.image, dpi=page.dpi, registrars=[Registrar(template)],
+                                dpi_known=page.dpi_origin in ("file", "render"))
+        return match.finding.image if match and match.finding is not None else None
+    layers = split_dropout(page.colour) if page.colour is not None else None
+    if layers is not None:
+        return warp_like(find_fields(layers.printed, dpi=page.dpi), layers.ink)
+    return find_fields(page.image, dpi=page.dpi).image
+
+
+def _from_crop(crop: np.ndarray, box: Box, dpi: float) -> Cell | None:
+    """The cell of ``box`` cut from its stored crop, when the crop has the margin the cutter uses
+    (then the cell is the reader's exactly); None otherwise."""
+    mx, my = crop.shape[1] - box.width, crop.shape[0] - box.height
+    if mx != my or mx < 2 or mx % 2:
+        return None
+    m = mx // 2
+    cell = cut_cell(crop, Box(m, m, m + box.width, m + box.height), dpi=dpi)
+    return cell if cell.crop.shape == crop.shape else None
 
 
 def batch_cells(batch: Batch) -> LabelledCells:

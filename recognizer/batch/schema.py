@@ -43,6 +43,16 @@ before the draw: a drawn field is audited once a person confirmed or corrected
 it in a later action) and ``audit_fields(audit_id, field_id, position,
 value)`` (the fields drawn, in the order they are checked, each with the
 value accepted when it was drawn).
+Version 5 makes the batch file lean (:mod:`recognizer.batch.images`): a page
+image may be kept at a display resolution, so ``page_images`` gains ``scale``
+(stored pixels per pixel of the page as read; 1 for every image of an older
+file, which stays as it was) and ``width``, ``height`` (the page's size as
+read, which box coordinates refer to; NULL: the stored image's own); the
+``png`` column holds PNG or WebP bytes (and crops in ``digits.crop_png``
+likewise). ``files.location`` is the absolute path of the scan when it was
+read (``path`` stays as it was given), to find the original again for
+cutting a box afresh at full resolution; NULL in older files (``path`` is
+tried).
 The meaning of the states and of ``value``/``whole``/``resolution`` is in
 :mod:`recognizer.states` and :mod:`recognizer.review.actions`.
 """
@@ -200,8 +210,23 @@ def _schema_v4(conn: sqlite3.Connection) -> None:
     )
 
 
+def _schema_v5(conn: sqlite3.Connection) -> None:
+    """Version 5: page images at a display resolution (their scale and the page's full size), and
+    where each scan file was when it was read. (A column already there is left as it is.)"""
+    added = {
+        "page_images": ("scale REAL NOT NULL DEFAULT 1", "width INTEGER", "height INTEGER"),
+        "files": ("location TEXT",),
+    }
+    for table, columns in added.items():
+        have = {r[1] for r in conn.execute(f"PRAGMA table_info({table})")}
+        for column in columns:
+            if column.split()[0] not in have:
+                conn.execute(f"ALTER TABLE {table} ADD COLUMN {column}")
+
+
 #: Schema steps in order: ``MIGRATIONS[i]`` brings a file from version i to i + 1.
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_schema_v1, _schema_v2, _schema_v3, _schema_v4]
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_schema_v1, _schema_v2, _schema_v3, _schema_v4,
+                                                       _schema_v5]
 #: Schema version written by this program.
 SCHEMA_VERSION = len(MIGRATIONS)
 

@@ -33,12 +33,16 @@ Storage
   the tables of version 1). Opening an older file runs the missing steps, each
   in one transaction, so a failed step leaves the file as it was. A file of a
   newer version is refused with a clear message.
-* **Images**: each page image (deskewed, grayscale, full resolution) is one
-  lossless PNG (zlib level 3): about 0.3 MB for a clean A5 card at 300 dpi,
-  about 2.6 MB when the scan is noisy (noise does not compress). The crop of
-  every box is a PNG too; the window shows those, and re-reading with another
-  model cuts the cells again from the stored page, so nothing depends on the
-  original scan files staying where they were.
+* **Images** (:mod:`recognizer.batch.images`): each page image (deskewed,
+  grey) is kept for the eye at a display resolution (150 dpi WebP, or whole
+  as a 1-bit PNG when the page is bitonal), with its scale; :meth:`Batch.page_image`
+  gives it back on the full-resolution grid the box coordinates refer to.
+  The crop of every box is kept exactly, at full resolution; re-reading with
+  another model and learning cut the cells again from those crops
+  (:class:`recognizer.batch.samples.StoredPages`), so nothing depends on the
+  original scan files staying where they were. Each file's content hash,
+  size, path and absolute location are kept, so that a box can also be cut
+  afresh from the original scan while it is still there.
 * **Probabilities**: the 11 class probabilities of each written box as 44
   bytes (little-endian float32, classes as in :data:`recognizer.digits.model.CLASSES`).
 
@@ -61,10 +65,10 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-import cv2
 import numpy as np
 
 from recognizer.batch import checks, schema
+from recognizer.batch.images import decode_image, encode_crop, encode_page, encode_png, full_size, is_lossless
 from recognizer.batch.opening import (
     APPLICATION_ID, FORMAT_NAME, BatchFileError, BatchInUseError, build_in_place, check_header, check_ours, connect,
     leftover, lock_for_writing, worth_a_look,
@@ -88,13 +92,13 @@ __all__ = [
     "BatchInUseError",
     "BatchSettings",
     "Change",
+    "PageImage",
     "encode_png",
     "decode_png",
     "stored_path",
 ]
 
 SUFFIX = ".inkcount"
-_PNG_LEVEL = 3
 #: Version of the flagging rule of :mod:`recognizer.states` (2: the value as a whole, and page
 #: warnings and layouts only for the fields they concern).
 FLAG_RULE = 2
@@ -161,27 +165,15 @@ _SETTING_NAMES = frozenset(f.name for f in dataclasses.fields(BatchSettings))
 # --------------------------------------------------------------------------- helpers
 
 
-def encode_png(image: np.ndarray) -> bytes:
-    """Lossless PNG bytes of an (M, N) uint8 image."""
-    ok, buf = cv2.imencode(".png", np.ascontiguousarray(image, dtype=np.uint8),
-                           [cv2.IMWRITE_PNG_COMPRESSION, _PNG_LEVEL])
-    if not ok:
-        raise ValueError(f"cannot encode an image of shape {np.shape(image)} as PNG")
-    return buf.tobytes()
-
-
 def decode_png(data: bytes, path: str | os.PathLike | None = None) -> np.ndarray:
-    """(M, N) uint8 image back from :func:`encode_png` bytes.
+    """(M, N) uint8 image back from stored image bytes (PNG or WebP, :mod:`recognizer.batch.images`).
 
-    The PNG's declared size is checked before it is decoded
-    (:func:`recognizer.batch.checks.check_png`). A damaged or oversized image
+    The declared size is checked before it is decoded
+    (:func:`recognizer.batch.checks.check_image`). A damaged or oversized image
     raises ValueError, or :class:`BatchFileError` naming ``path`` when given.
     """
     try:
-        checks.check_png(data)
-        image = cv2.imdecode(np.frombuffer(data, np.uint8), cv2.IMREAD_UNCHANGED)
-        if image is None or image.ndim != 2 or image.dtype != np.uint8:
-            raise ValueError("damaged image data in the batch file")
+        image = decode_image(data)
     except ValueError as exc:
         if path is None:
             raise
@@ -201,6 +193,24 @@ def stored_path(path: str | os.PathLike) -> str:
             return text.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
         except UnicodeEncodeError:
             return text.encode("utf-8", "backslashreplace").decode("utf-8")
+
+
+@dataclass(frozen=True)
+class PageImage:
+    """A page image as the batch keeps it: ``image`` at ``scale`` stored pixels per pixel of the page
+    as read, whose full size is ``width`` x ``height`` (the grid of the box coordinates); ``lossless``:
+    the image is exact (a page of an older batch at scale 1, or a bitonal page)."""
+
+    image: np.ndarray
+    scale: float
+    width: int
+    height: int
+    lossless: bool
+
+    @property
+    def exact(self) -> bool:
+        """The stored image is the page as read, pixel for pixel (boxes can be cut from it)."""
+        return self.lossless and self.image.shape == (self.height, self.width)
 
 
 # --------------------------------------------------------------------------- the batch
@@ -398,11 +408,25 @@ class Batch:
     # ---- reading back
 
     def page_image(self, page_id: int) -> np.ndarray | None:
-        """The deskewed page, (M, N) uint8, or None for a page that could not be read."""
+        """The deskewed page, (M, N) uint8, on the full-resolution grid the box coordinates refer to
+        (a page kept at a display resolution is scaled back), or None for a page that could not be read."""
+        stored = self.stored_page(page_id)
+        return None if stored is None else full_size(stored.image, stored.width, stored.height)
+
+    def stored_page(self, page_id: int) -> PageImage | None:
+        """The page image as stored (see :class:`PageImage`), or None for a page that could not be read."""
         if not self.rows("SELECT 1 FROM pages WHERE id = ?", (page_id,)):
             raise KeyError(f"no page {page_id}")
-        rows = self.rows("SELECT png FROM page_images WHERE page_id = ?", (page_id,))
-        return decode_png(rows[0][0], self.path) if rows else None
+        rows = self.rows("SELECT png, scale, width, height FROM page_images WHERE page_id = ?", (page_id,))
+        if not rows:
+            return None
+        data, scale, width, height = rows[0]
+        image = decode_png(data, self.path)
+        if width is None:
+            height, width = image.shape
+        if abs(image.shape[1] - width * scale) > 2 or abs(image.shape[0] - height * scale) > 2:
+            raise BatchFileError(self.path, f"the image of page {page_id} is not the size its scale says")
+        return PageImage(image, float(scale), int(width), int(height), is_lossless(data))
 
     def digit_crop(self, digit_id: int) -> np.ndarray:
         """The crop of one box as read, (h, w) uint8, 0 = ink."""
@@ -426,8 +450,10 @@ class Batch:
     # ---- writing pages (used by ingest_scans)
 
     def add_file(self, path: str | os.PathLike, sha256: str | None, size: int | None) -> int:
-        """Record a source file (its path as :func:`stored_path` writes it); return its id."""
+        """Record a source file (its path as :func:`stored_path` writes it, and where it is: its absolute
+        path); return its id."""
         text = stored_path(path)
+        location = stored_path(os.path.abspath(os.fspath(path)))
         with self.transaction() as conn:
             # A file that could not be read before is tried again: its old problem goes.
             for (file_id,) in conn.execute(
@@ -436,8 +462,8 @@ class Batch:
                 conn.execute("DELETE FROM pages WHERE file_id = ?", (file_id,))
                 conn.execute("DELETE FROM files WHERE id = ?", (file_id,))
             cur = conn.execute(
-                "INSERT INTO files (path, sha256, size, added) VALUES (?, ?, ?, ?)",
-                (text, sha256, size, timestamp()),
+                "INSERT INTO files (path, sha256, size, added, location) VALUES (?, ?, ?, ?, ?)",
+                (text, sha256, size, timestamp(), location),
             )
             return int(cur.lastrowid)
 
@@ -528,7 +554,10 @@ def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_v
     )
     page_id = int(cur.lastrowid)
     if page.image is not None:
-        conn.execute("INSERT INTO page_images (page_id, png) VALUES (?, ?)", (page_id, encode_png(page.image)))
+        data, scale = encode_page(page.image, page.dpi)
+        height, width = page.image.shape[:2]
+        conn.execute("INSERT INTO page_images (page_id, png, scale, width, height) VALUES (?, ?, ?, ?, ?)",
+                     (page_id, data, scale, width, height))
     for position, f in enumerate(page.fields):
         boxes = json.dumps([[int(b.x0), int(b.y0), int(b.x1), int(b.y1)] for b in f.boxes])
         cur = conn.execute(
@@ -546,7 +575,7 @@ def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_v
                 (
                     field_id, d.box, int(d.blank), d.text, float(d.confidence),
                     None if d.blank else model_version, d.text, State.READ.value,
-                    None if d.probs is None else np.asarray(d.probs, "<f4").tobytes(), encode_png(d.crop),
+                    None if d.probs is None else np.asarray(d.probs, "<f4").tobytes(), encode_crop(d.crop),
                 )
                 for d in f.digits
             ],

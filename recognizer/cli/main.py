@@ -33,6 +33,7 @@ from recognizer.cli.model import add_model_commands
 from recognizer.cli.template import add_template_commands
 from recognizer.reading.values_csv import DigitsWriter, ValuesTable
 from recognizer.digits.model import ModelFileError, load_model
+from recognizer.reading.cluster import ClusterError
 from recognizer.reading.stream import ReadSettings, read_scans
 from recognizer.reading.page import PageRead
 from recognizer.states import DEFAULT_TARGET_ERROR, REASON_WORDS, Reason
@@ -79,6 +80,10 @@ def _add_read_command(sub) -> None:
     p.add_argument("--digits", type=Path, metavar="CSV", help="also write one row per digit with its confidence and probabilities")
     p.add_argument("--recursive", "-r", action="store_true", help="look in sub-folders too")
     p.add_argument("--workers", "-j", type=_positive_int, default=1, metavar="N", help="pages read in parallel by N processes (default 1)")
+    p.add_argument("--cluster", metavar="ADDRESS",
+                   help="read the pages on a running Dask cluster (scheduler address, e.g. tcp://host:8786; the "
+                   "workers need Inkcount and the scans at the same path), or local:N for N worker processes "
+                   "on this computer; needs pip install 'inkcount[cluster]'")
     p.add_argument("--model", type=Path, metavar="FILE", help="digit model file (default: the model shipped with Inkcount)")
     p.add_argument("--template", "-t", type=Path, action="append", default=[], metavar="FILE",
                    help="form template (from 'inkcount template new'); repeat for several designs: each page "
@@ -183,6 +188,9 @@ def run_read(args: argparse.Namespace) -> int:
     if args.out is None and args.batch is None:
         _err("say where the values go: --out values.csv, --batch FILE.inkcount, or both")
         return 2
+    if args.cluster is not None and args.workers > 1:
+        _err("--workers and --cluster: choose one (a cluster has its own workers)")
+        return 2
     try:
         model = load_model(args.model)
     except ModelFileError as exc:
@@ -200,6 +208,7 @@ def run_read(args: argparse.Namespace) -> int:
         pdf_dpi=args.pdf_dpi,
         max_pixels=args.max_pixels,
         template_paths=tuple(str(p) for p in args.template),
+        cluster=args.cluster,
     )
     with ExitStack() as stack:
         batch = None
@@ -224,17 +233,29 @@ def run_read(args: argparse.Namespace) -> int:
         tally = _Tally(threshold, bar, digits_out)
         for problem in listing_problems:
             tally.problem(problem)
-        if batch is None:
-            for result in read_scans(files, settings=settings, workers=args.workers, model=model):
-                tally.add(result)
-        else:
-            summary = ingest_scans(
-                batch, files, settings=settings, workers=args.workers,
-                model=model if args.workers == 1 else None,
-                problems=listing_problems, on_result=tally.add,
-            )
-            for path, known_as in summary.known:
-                bar.write(f"inkcount: {path}: already in the batch (as {known_as}), not read again", file=sys.stderr)
+        try:
+            if batch is None:
+                for result in read_scans(files, settings=settings, workers=args.workers, model=model):
+                    tally.add(result)
+            else:
+                summary = ingest_scans(
+                    batch, files, settings=settings, workers=args.workers,
+                    model=model if args.workers == 1 else None,
+                    problems=listing_problems, on_result=tally.add,
+                )
+                for path, known_as in summary.known:
+                    bar.write(f"inkcount: {path}: already in the batch (as {known_as}), not read again",
+                              file=sys.stderr)
+        except ClusterError as exc:
+            bar.close()
+            _err(str(exc))
+            print(tally.summary())
+            if args.batch is not None:
+                print(f"The {tally.pages} page(s) read are in batch {args.batch}; run the same command again "
+                      "to read the rest.")
+            elif args.out is not None:
+                print(f"{args.out} is not written: run the command again.")
+            return 3
     if args.out is not None:
         try:
             tally.table.write(args.out)
@@ -273,7 +294,17 @@ def _threshold(args: argparse.Namespace, model, batch: Batch | None) -> float:
     return model.threshold_for(target / 100)
 
 
+def _printable_streams() -> None:
+    """A file name whose bytes are not UTF-8 prints with them escaped, instead of stopping the command."""
+    for stream in (sys.stdout, sys.stderr):
+        try:
+            stream.reconfigure(errors="backslashreplace")
+        except (AttributeError, ValueError, OSError):
+            pass
+
+
 def main(argv: list[str] | None = None) -> int:
+    _printable_streams()
     parser = build_parser()
     args = parser.parse_args(argv)
     return int(args.func(args) or 0)

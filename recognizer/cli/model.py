@@ -271,6 +271,8 @@ def run_use(args: argparse.Namespace) -> int:
     threshold = "unchanged" if summary.threshold is None else f"{summary.threshold:.4f}"
     print(f"re-read {summary.digits} unchecked digits with {model.version}: {summary.changed} read differently; "
           f"threshold {threshold}")
+    for line in summary.missing_lines():  # scans no longer where they were read (most boxes need none)
+        print(f"inkcount: {line}", file=sys.stderr)
     return 0
 
 

@@ -272,9 +272,11 @@ def find_fields(page: np.ndarray, *, dpi: float, min_box_mm: float = 3.5,
 
     ink = ruling.ink_mask(flat, paper - ink_step, work_px_per_mm)
     lines = ruling.horizontal_lines(ink, work_px_per_mm, min_box_mm)
-    rects = ruling.regions(ink, lines, work_px_per_mm, min_box_mm, max_box_mm)
+    segments = ruling.line_segments(lines, work_px_per_mm, min_box_mm)  # once, for both kinds of comb
+    rects = ruling.regions(ink, lines, work_px_per_mm, min_box_mm, max_box_mm, segments=segments)
     fields = box_rows.fit_fields(rects, lines, ink, work_px_per_mm, min_box_mm, max_box_mm)
-    fields = combs.add_open_combs(fields, ink, lines, work_px_per_mm, min_box_mm, max_box_mm)
+    fields = combs.add_open_combs(fields, ink, lines, work_px_per_mm, min_box_mm, max_box_mm,
+                                  segments=segments)
     finding = BoxFinding(gray, dpi, skew, transform=transform)
     if not fields:
         finding.problem = NO_BOXES

@@ -78,13 +78,15 @@ Field = tuple[list[Rect], tuple[str, ...]]
 
 
 def open_combs(ink: np.ndarray, lines: np.ndarray, px_per_mm: float, min_box_mm: float,
-               max_box_mm: float, found: list[list[Rect]]) -> list[Field]:
+               max_box_mm: float, found: list[list[Rect]], *,
+               segments: list[Rect] | None = None) -> list[Field]:
     """The open-comb fields of a page, each as its boxes left to right and its doubts.
 
     ``ink`` and ``lines`` are the working-resolution masks of
     :mod:`recognizer.page.ruling`; ``found`` the boxes of the fields found
-    already (an open comb may not overlap those of three boxes or more).
-    :func:`add_open_combs` puts the two together.
+    already (an open comb may not overlap those of three boxes or more);
+    ``segments`` the :func:`~recognizer.page.ruling.line_segments` of ``lines``
+    when worked out already.  :func:`add_open_combs` puts the two together.
     """
     lo, hi = 0.9 * min_box_mm * px_per_mm, max_box_mm * px_per_mm
     taken = np.zeros(ink.shape, bool)
@@ -93,7 +95,7 @@ def open_combs(ink: np.ndarray, lines: np.ndarray, px_per_mm: float, min_box_mm:
             for b in boxes:
                 taken[b.y0:b.y1, b.x0:b.x1] = True
     fields = []
-    for seg in line_segments(lines, px_per_mm, min_box_mm):
+    for seg in segments if segments is not None else line_segments(lines, px_per_mm, min_box_mm):
         ticks = _ticks(ink, seg, px_per_mm)
         pitch = _pitch(ticks, lo, hi)
         if pitch is None:
@@ -303,7 +305,8 @@ def _extend(boxes: list[Rect], ticks: list[tuple[int, int, bool]], seg: Rect, pi
 
 
 def add_open_combs(fields: list[Field], ink: np.ndarray, lines: np.ndarray, px_per_mm: float,
-                   min_box_mm: float, max_box_mm: float) -> list[Field]:
+                   min_box_mm: float, max_box_mm: float, *,
+                   segments: list[Rect] | None = None) -> list[Field]:
     """The page's fields of closed boxes ``fields`` and its open combs.
 
     When the page has open combs, a closed field of one or two boxes that
@@ -312,7 +315,7 @@ def add_open_combs(fields: list[Field], ink: np.ndarray, lines: np.ndarray, px_p
     (:func:`drop_odd_small`).  A page without open combs keeps ``fields``.
     """
     opened = open_combs(ink, lines, px_per_mm, min_box_mm, max_box_mm,
-                        [boxes for boxes, _ in fields])
+                        [boxes for boxes, _ in fields], segments=segments)
     if not opened:
         return fields
     covered = np.zeros(ink.shape, bool)

@@ -29,15 +29,18 @@ from recognizer.page.boxes import NO_BOXES, Box, BoxFinding, find_fields, warp_l
 from recognizer.page.dropout import DropoutLayers, split_dropout
 from recognizer.page.cells import Cell, cut_cells
 from recognizer.page.loose_ink import loose_numbers
+from recognizer.reading.orientation import TURNED, turned_is_better, worth_turning
 from recognizer.digits.preprocess import to_model_input
 from recognizer.digits.model import CLASSES, NOT_A_DIGIT, DigitModel
 from recognizer.forms.registration import Registrar, match_templates
-from recognizer.scans.files import Page
+from recognizer.scans.files import Page, ScanProblem
+from recognizer.scans.limits import program_error_words
 from recognizer.forms.template import Template
 from recognizer.forms.values import check_page
 from recognizer.states import NOT_A_DIGIT_MARK, check_field, digit_to_check, layout_reasons, page_layout
 
-__all__ = ["UNREADABLE_MARK", "DigitRead", "FieldRead", "PageRead", "PageReader", "field_value", "reading_of"]
+__all__ = ["UNREADABLE_MARK", "DigitRead", "FieldRead", "PageRead", "PageReader", "field_value", "read_or_problem",
+           "reading_of"]
 
 #: Character standing for a mark the model calls "not a digit".
 UNREADABLE_MARK = NOT_A_DIGIT_MARK
@@ -168,6 +171,27 @@ SOME_BOXES_NOT_VISIBLE = ("some digit boxes are not visible on this page (handwr
 _LOOSE_DIGIT_CONFIDENCE = 0.9
 
 
+_blas = None  # a threadpoolctl.ThreadpoolController, made at the first page (kept out of the window's start)
+
+
+def _predict(model: DigitModel, cells: np.ndarray) -> np.ndarray:
+    """``model.predict_proba(cells)`` on one BLAS thread.
+
+    A page's cells are one small batch (tens of rows): more BLAS threads only
+    spin against the thread decoding the next page and the other readers
+    (ten times slower on two cores, measured by ``bench/bench_read.py``).
+    Every way of reading (one process, a pool, a Dask cluster) calls the
+    model so, which keeps their results the same.
+    """
+    global _blas
+    if _blas is None:
+        from threadpoolctl import ThreadpoolController
+
+        _blas = ThreadpoolController()
+    with _blas.limit(limits=1, user_api="blas"):
+        return model.predict_proba(cells)
+
+
 def _bitonal(image: np.ndarray) -> bool:
     """Only black and white (a 1-bit or fax-like capture), seen at every 4th pixel."""
     small = image[::4, ::4]
@@ -226,7 +250,28 @@ class PageReader:
         self.registrars = [Registrar(t) for t in templates]
 
     def read(self, page: Page) -> PageRead:
-        """Read one page; never raises on odd page content."""
+        """Read one page; never raises on odd page content.
+
+        Without templates, a page whose digits read doubtfully is read again
+        turned by 180 degrees, and the turned reading is kept when it is
+        clearly surer (:mod:`recognizer.reading.orientation`); a template's
+        registration turns an upside-down page by itself.
+        """
+        read = self._read_as_is(page)
+        if self.registrars or not read:
+            return read
+        confidences = [d.confidence for f in read.fields for d in f.digits if d.text]
+        if not worth_turning(confidences):
+            return read
+        turned = self._read_as_is(replace(
+            page, image=np.ascontiguousarray(page.image[::-1, ::-1]),
+            colour=None if page.colour is None else np.ascontiguousarray(page.colour[::-1, ::-1])))
+        if turned and turned_is_better(confidences, [d.confidence for f in turned.fields for d in f.digits if d.text]):
+            turned.warnings.append(TURNED)
+            return turned
+        return read
+
+    def _read_as_is(self, page: Page) -> PageRead:
         layers = split_dropout(page.colour) if page.colour is not None else None
         if self.registrars:
             read = self._read_with_template(page)
@@ -248,7 +293,7 @@ class PageReader:
         black and white); see :mod:`recognizer.page.loose_ink`."""
         def classify(crops: list[np.ndarray]) -> np.ndarray:
             cells = np.stack([to_model_input(c.astype(np.float32) / 255.0) for c in crops])
-            probs = self.model.predict_proba(cells)
+            probs = _predict(self.model, cells)
             return (probs.argmax(axis=1) != NOT_A_DIGIT) & (probs.max(axis=1) >= _LOOSE_DIGIT_CONFIDENCE)
 
         return bool(loose_numbers(finding.image, dpi=finding.dpi, fields=finding.fields, classify=classify))
@@ -294,7 +339,7 @@ class PageReader:
         ]
         written = [c.mnist for cells in per_field for c in cells if not c.blank]
         probs = (
-            self.model.predict_proba(np.stack(written))
+            _predict(self.model, np.stack(written))
             if written
             else np.zeros((0, len(CLASSES)))
         )
@@ -316,3 +361,15 @@ class PageReader:
             source, page, finding.dpi, finding.skew_deg, fields,
             warnings=list(finding.warnings), image=image,
         )
+
+
+def read_or_problem(reader: PageReader, page: Page) -> PageRead | ScanProblem:
+    """``reader.read(page)``, an error of the reader on this page made its problem line.
+
+    Every way of reading (one process, a pool, a Dask cluster) reads a page
+    through this guard, so a bug met on an odd page does not stop the batch.
+    """
+    try:
+        return reader.read(page)
+    except Exception as exc:  # a bug met on an odd page must not stop the batch
+        return ScanProblem(page.source, page.page, program_error_words(exc))

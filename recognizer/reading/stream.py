@@ -1,5 +1,6 @@
 """Reading many scans: pages streamed through a :class:`~recognizer.reading.page.PageReader`,
-in this process or in a pool of worker processes.
+in this process, in a pool of worker processes or on a Dask cluster
+(:mod:`recognizer.reading.cluster`).
 
 :func:`read_scans` is what the command line, the batch store and the window
 all use. It yields one result per page, in the order of the input files and
@@ -8,7 +9,8 @@ their pages: a :class:`~recognizer.reading.page.PageRead`, or a
 read. It never holds more than a few pages at a time: with ``workers=1``
 pages are decoded and read one after the other; with more workers each
 process loads its own pages by (file, page number) and at most two pages per
-worker are in flight.
+worker are in flight; on a cluster likewise, two pages per worker thread, the
+pages read ahead waiting on the workers.
 
 A damaged scan never stops the stream: every file is opened, counted and
 decoded inside the per-file guard of :mod:`recognizer.scans.files`, and an
@@ -19,6 +21,7 @@ program, to be reported), so the pages after it are still read.
 
 from __future__ import annotations
 
+import multiprocessing
 import os
 import threading
 from collections import deque
@@ -29,9 +32,9 @@ from queue import Empty, Full, Queue
 from pathlib import Path
 
 from recognizer.digits.model import DigitModel, load_model
-from recognizer.reading.page import PageRead, PageReader
+from recognizer.reading.page import PageRead, PageReader, read_or_problem
 from recognizer.scans.files import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, Page, ScanProblem, count_pages, iter_pages, load_page
-from recognizer.scans.limits import MAX_PAGE_PROBLEMS_PER_FILE, program_error_words
+from recognizer.scans.limits import MAX_PAGE_PROBLEMS_PER_FILE
 from recognizer.forms.template_file import load_template
 
 __all__ = ["ReadSettings", "read_scans", "PageJob", "page_jobs"]
@@ -42,7 +45,10 @@ class ReadSettings:
     """How pages are loaded and read (plain values, so it can go to a worker).
 
     ``template_paths`` are form template files (:mod:`recognizer.forms.template_file`);
-    with any, every page is read with the template it fits best.
+    with any, every page is read with the template it fits best. ``cluster``,
+    when set, is a Dask scheduler address (``tcp://host:8786``) or
+    ``local:N``: the pages are read there (:mod:`recognizer.reading.cluster`)
+    instead of in this process or a pool, whatever ``workers`` says.
     """
 
     model_path: str | None = None
@@ -50,6 +56,7 @@ class ReadSettings:
     max_pixels: int = DEFAULT_MAX_PIXELS
     keep_image: bool = False
     template_paths: tuple[str, ...] = ()
+    cluster: str | None = None
 
 
 @dataclass(frozen=True)
@@ -102,14 +109,22 @@ def read_scans(
         Model file, PDF resolution, pixel limit, whether to keep page images.
     workers : int
         1 reads in this process; more starts that many worker processes.
+        Unused when ``settings.cluster`` is set.
     model : DigitModel, optional
-        An already loaded model for ``workers=1`` (otherwise loaded from
-        ``settings.model_path``; workers always load their own).
+        An already loaded model for ``workers=1`` or a cluster, which gets
+        this very model (otherwise loaded from ``settings.model_path``; pool
+        workers always load their own).
     skip : callable, optional
         ``skip(path, page) -> bool`` leaves out pages already read.
     """
     if workers < 1:
         raise ValueError(f"workers must be at least 1, got {workers}")
+    if settings.cluster:
+        from recognizer.reading.cluster import read_on_cluster  # Dask only when asked for
+
+        jobs = page_jobs(files, max_pixels=settings.max_pixels, skip=skip)
+        yield from _few_problems_per_file(read_on_cluster(jobs, settings, model=model))
+        return
     if workers == 1:
         reader = _reader(model or load_model(settings.model_path), settings)
         if skip is None:
@@ -128,10 +143,7 @@ def read_scans(
 
 def _read_page(reader: PageReader, page: Page) -> PageRead | ScanProblem:
     """``reader.read(page)``, an error of the reader on this page made its problem line."""
-    try:
-        return reader.read(page)
-    except Exception as exc:  # a bug met on an odd page must not stop the batch
-        return ScanProblem(page.source, page.page, program_error_words(exc))
+    return read_or_problem(reader, page)
 
 
 def _few_problems_per_file(results: Iterable) -> Iterator:
@@ -235,6 +247,9 @@ _worker_settings: ReadSettings | None = None
 
 def _init_worker(settings: ReadSettings) -> None:
     global _worker_reader, _worker_settings
+    import cv2
+
+    cv2.setNumThreads(1)  # one page at a time on one core per worker process
     _worker_settings = settings
     _worker_reader = _reader(load_model(settings.model_path), settings)
 
@@ -251,7 +266,12 @@ def _read_in_pool(files, settings: ReadSettings, workers: int, skip) -> Iterator
     for path in settings.template_paths:
         load_template(path)
     pending: deque[Future | ScanProblem] = deque()
-    with ProcessPoolExecutor(max_workers=workers, initializer=_init_worker, initargs=(settings,)) as pool:
+    # Workers are started from a fresh server process, never forked from this one: a fork copies
+    # the locks other threads hold (the decoding thread, the window's, a Dask client's) and can hang.
+    context = multiprocessing.get_context("forkserver" if "forkserver" in multiprocessing.get_all_start_methods()
+                                          else "spawn")
+    with ProcessPoolExecutor(max_workers=workers, mp_context=context, initializer=_init_worker,
+                             initargs=(settings,)) as pool:
         try:
             for job in page_jobs(files, max_pixels=settings.max_pixels, skip=skip):
                 pending.append(job if isinstance(job, ScanProblem) else pool.submit(_worker_read, job))

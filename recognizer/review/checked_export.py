@@ -42,7 +42,7 @@ from pathlib import Path
 
 from recognizer.batch.queries import count_fields, stored_pages
 from recognizer.batch.review_rows import CheckedField, checked_fields
-from recognizer.batch.store import Batch
+from recognizer.batch.store import Batch, stored_path
 from recognizer.reading.values_csv import csv_writer, field_sort_key, open_csv
 from recognizer.review.audit import residual_figures, residual_line, residual_path, residual_statement
 from recognizer.states import State
@@ -149,7 +149,7 @@ def export_checked(
         tmp.unlink(missing_ok=True)
         raise
     side = residual_path(out)
-    _write_text(side, residual_statement(figures, batch_name=Path(batch.path).name))
+    _write_text(side, residual_statement(figures, batch_name=stored_path(Path(batch.path).name)))
     return ExportResult(out, rows=len(rows), unchecked=unchecked, residual=side, residual_line=residual_line(figures))
 
 
@@ -157,7 +157,7 @@ def _write_text(path: Path, text: str) -> None:
     """Write ``text`` to ``path`` through a temporary file renamed into place."""
     tmp = path.with_name(f".{path.name}.partial")
     try:
-        with open(tmp, "w", encoding="utf-8", newline="\n") as fh:
+        with open(tmp, "w", encoding="utf-8", errors="backslashreplace", newline="\n") as fh:
             fh.write(text)
         os.replace(tmp, path)
     except BaseException:

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -21,11 +21,23 @@ __all__ = ["RereadSummary", "reread_unchecked"]
 
 @dataclass
 class RereadSummary:
-    """What :func:`reread_unchecked` did: digits read again, and how many changed their reading."""
+    """What :func:`reread_unchecked` did: digits read again, and how many changed their reading.
+
+    ``missing`` names the scan files (path as given -> why: "not found", "changed since it was
+    read", ...) that were needed to cut boxes again and could not be used; ``kept`` counts the boxes
+    that therefore kept their stored reading (their pages are otherwise read again as usual).
+    """
 
     digits: int = 0
     changed: int = 0
     threshold: float | None = None
+    missing: dict[str, str] = field(default_factory=dict)
+    kept: int = 0
+
+    def missing_lines(self) -> list[str]:
+        """One line per missing scan file, for the command line and the window."""
+        return [f"{path}: {reason}; the boxes it was needed for keep their reading"
+                for path, reason in sorted(self.missing.items())]
 
 
 def reread_unchecked(batch: Batch, model: DigitModel, *, model_path: str | None = None,
@@ -33,7 +45,10 @@ def reread_unchecked(batch: Batch, model: DigitModel, *, model_path: str | None 
     """Read again, with ``model``, every written box no person has handled.
 
     Boxes ``corrected``, ``confirmed`` or ``unreadable`` keep their values.
-    The cells are cut again from the stored page images. Each box re-read
+    The cells are cut again as the reader cut them (:class:`recognizer.batch.samples.StoredPages`:
+    from the stored crops, else from the original scan); a box that cannot be
+    cut again keeps its stored reading, and the scan files that were needed but
+    not found (or changed) are named in the summary's ``missing``. Each box re-read
     records ``model.version``; the batch's model becomes ``model`` (and
     ``model_path`` if given), and a threshold that follows a target residual
     error is recomputed from the new model's calibration. One transaction per
@@ -50,18 +65,21 @@ def reread_unchecked(batch: Batch, model: DigitModel, *, model_path: str | None 
             values["threshold"] = summary.threshold
         batch.update_settings(conn, **values)
         record_action(conn, reviewer=reviewer, kind="reread", old=current.model_version, new=model.version)
+    pages = StoredPages(batch, keep=1)
     for page_id in pages_with_open_digits(batch):
-        _reread_page(batch, model, page_id, summary)
+        _reread_page(batch, model, pages, page_id, summary)
+    summary.missing = dict(pages.missing)
     with batch.transaction() as conn:
         refresh_states(conn)
     batch.notify(Change("flags"))
     return summary
 
 
-def _reread_page(batch: Batch, model: DigitModel, page_id: int, summary: RereadSummary) -> None:
+def _reread_page(batch: Batch, model: DigitModel, pages: StoredPages, page_id: int,
+                 summary: RereadSummary) -> None:
     boxes = open_boxes(batch, page_id)
-    pages = StoredPages(batch, keep=1)
     cells = {b.digit_id: pages.cell(page_id, b.field_boxes[b.box]) for b in boxes}
+    summary.kept += sum(1 for c in cells.values() if c is None)
     wanted = [b for b in boxes if cells[b.digit_id] is not None and not cells[b.digit_id].blank]
     if not wanted:
         return

@@ -171,7 +171,7 @@ def test_without_the_held_out_digits_learning_says_so_once(learning_window, qtbo
     with qtbot.waitSignal(learning_window.controller.learning_done, timeout=ROUND_TIMEOUT) as blocker:
         _check(learning_window, EVERY)
     assert blocker.args[0] is None
-    assert "needs the held-out check digits" in learning_window.last_message
+    assert "needs the 5,000 test digits it never saw" in learning_window.last_message
     assert "Learning is off for now" in learning_window.last_message
     _check(learning_window, EVERY)
     assert not learning_window.controller.learning

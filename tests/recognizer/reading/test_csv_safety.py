@@ -61,3 +61,20 @@ def test_read_writes_formula_and_non_utf8_file_names_safely(tmp_path, monkeypatc
     with open(tmp_path / "v.csv", newline="", encoding="utf-8") as fh:
         values = [row["f01"] for row in csv.DictReader(fh)]
     assert all(v.isdigit() for v in values)  # the values themselves are left as read
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="file names there are always Unicode")
+def test_a_batch_and_scan_whose_names_are_not_utf8_read_and_export(tmp_path, monkeypatch, capsys):
+    from tests.support.cli import run
+
+    scans = tmp_path / "scans"
+    scans.mkdir()
+    shutil.copy(SAMPLES / "scans" / "card_01.png", os.fsdecode(os.fsencode(scans) + b"/caf\xe9.png"))
+    batch = os.fsdecode(os.fsencode(tmp_path) + b"/b\xe9.inkcount")
+    assert main(["read", str(scans), "--batch", batch]) == 0
+    assert run("export", batch, "--out", str(tmp_path / "x.csv"), "--allow-unchecked") == 0
+    capsys.readouterr()
+    with open(tmp_path / "x.csv", newline="", encoding="utf-8") as fh:
+        assert [row["file"] for row in csv.DictReader(fh)] == [str(scans / "caf\\xe9.png")]
+    statement = (tmp_path / "x.residual.txt").read_text(encoding="utf-8")
+    assert "b\\xe9.inkcount" in statement

@@ -1,0 +1,248 @@
+"""The lean batch file (format 5): page images kept small, boxes still on their boxes, cells cut again
+exactly as the reader cut them (from the crops or the original scan), re-reading without the scan,
+and a format-4 file upgraded.
+
+Pages are generated (our stroke-model writers on the benchmark's A4 page, :mod:`recognizer.synth`):
+geometry and exactness checks only.
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+import sqlite3
+from pathlib import Path
+
+import cv2
+import numpy as np
+import pytest
+from numpy.testing import assert_array_equal
+
+from recognizer.batch import checks
+from recognizer.batch.images import encode_crop, encode_page, encode_png
+from recognizer.batch.samples import StoredPages, labelled_samples
+from recognizer.batch.store import Batch
+from recognizer.digits.model import load_model
+from recognizer.ingest import ingest_scans
+from recognizer.page.boxes import Box
+from recognizer.page.cells import cut_cells
+from recognizer.reading.page import PageReader
+from recognizer.review import reread_unchecked, set_field
+from recognizer.scans.files import load_page
+from recognizer.synth import forms as formgen
+from recognizer.synth.handwriting import Writer
+from tests.support.batches import FakeModel
+
+DPI = 300
+
+
+@pytest.fixture(scope="module")
+def model():
+    return load_model(None)
+
+
+@pytest.fixture(scope="module")
+def read_batch(tmp_path_factory, model) -> tuple[Path, Path]:
+    """One generated A4 page at 300 dpi, skewed and noisy as the reading benchmark's, read into a batch."""
+    folder = tmp_path_factory.mktemp("lean")
+    rng = np.random.default_rng(14)
+    layout = formgen.bench_page()
+    form = formgen.render_form(layout, formgen.random_values(layout, rng=rng), dpi=DPI,
+                               writer=Writer.random(rng), rng=rng)
+    form = formgen.scan_distort(form, rng=rng, skew_deg=1.3, noise=0.02, blur=0.6, lighting=0.2)
+    scan = folder / "scans" / "page.png"
+    scan.parent.mkdir()
+    formgen.save_scan(form.image, scan, dpi=DPI, optimize=False)
+    path = folder / "lean.inkcount"
+    with Batch.create(path) as batch:
+        summary = ingest_scans(batch, [scan], model=model)
+    assert summary.pages_read == 1
+    return path, scan
+
+
+def _copy(read_batch, tmp_path: Path, *, move_scan: bool = False) -> tuple[Path, Path]:
+    path, scan = read_batch
+    folder = tmp_path / "copy"
+    (folder / "scans").mkdir(parents=True)
+    new_scan = folder / "scans" / scan.name
+    shutil.copy(scan, new_scan)
+    new_path = folder / path.name
+    shutil.copy(path, new_path)
+    conn = sqlite3.connect(new_path)
+    with conn:
+        conn.execute("UPDATE files SET path = ?, location = ?", (str(new_scan), str(new_scan)))
+    conn.close()
+    if move_scan:
+        new_scan.rename(folder / "elsewhere.png")
+    return new_path, new_scan
+
+
+def _unusable_crops(path: Path) -> None:
+    """Crops of another cut than today's (as if the cutter's margin had changed): only the original
+    scan (or an exact page) can give the cells now."""
+    conn = sqlite3.connect(path)
+    with conn:
+        conn.execute("UPDATE digits SET crop_png = ?", (encode_png(np.full((5, 5), 255, np.uint8)),))
+    conn.close()
+
+
+def _page_id(batch: Batch) -> int:
+    return batch.rows("SELECT id FROM pages WHERE dpi IS NOT NULL")[0][0]
+
+
+def _boxes(batch: Batch, page_id: int):
+    return [(r[0], json.loads(r[1])[r[2]]) for r in batch.rows(
+        "SELECT d.id, f.boxes, d.box FROM digits d JOIN fields f ON f.id = d.field_id WHERE f.page_id = ? "
+        "ORDER BY d.id", (page_id,))]
+
+
+def _reader_cells(model, scan: Path, batch: Batch, page_id: int) -> dict[int, np.ndarray | None]:
+    """The model input the reader makes of every box of the page: the page read again by the reader,
+    its boxes cut as it cuts them."""
+    read = PageReader(model, keep_image=True).read(load_page(scan, 1))
+    boxes = _boxes(batch, page_id)
+    cells = cut_cells(read.image, [Box(*edges) for _, edges in boxes], dpi=read.dpi)
+    return {digit_id: cell.mnist for (digit_id, _), cell in zip(boxes, cells)}
+
+
+def test_the_page_image_is_kept_small_and_its_boxes_land_on_the_boxes(read_batch):
+    path, _scan = read_batch
+    with Batch.open(path, read_only=True) as batch:
+        page_id = _page_id(batch)
+        stored = batch.stored_page(page_id)
+        size = batch.rows("SELECT length(png) FROM page_images WHERE page_id = ?", (page_id,))[0][0]
+        full = batch.page_image(page_id)
+        assert stored.scale == pytest.approx(150 / DPI)
+        assert stored.image.shape == (round(stored.height * stored.scale), round(stored.width * stored.scale))
+        assert full.shape == (stored.height, stored.width) == (3508, 2480)  # A4 at 300 dpi, as read
+        assert size < 60_000, size  # the full page was 1.8 MB as PNG
+        margin = round(0.8 * DPI / 25.4)  # the crop's margin (recognizer.page.cells)
+        for digit_id, (x0, y0, x1, y1) in _boxes(batch, page_id):
+            crop = batch.digit_crop(digit_id).astype(np.float32)  # the full page there, exactly
+            # the page as the window draws it (scaled back): the box, its walls and ink where they were
+            shown = full[y0 - margin:y1 + margin, x0 - margin:x1 + margin].astype(np.float32)
+            assert np.corrcoef(shown.ravel(), crop.ravel())[0, 1] > 0.9
+            assert np.mean(np.abs(shown - crop)) < 15
+            # the kept image itself at the box's coordinates times the scale
+            s = stored.scale
+            small = stored.image[round((y0 - margin) * s):round((y1 + margin) * s),
+                                 round((x0 - margin) * s):round((x1 + margin) * s)].astype(np.float32)
+            shrunk = cv2.resize(crop, (small.shape[1], small.shape[0]), interpolation=cv2.INTER_AREA)
+            assert np.corrcoef(small.ravel(), shrunk.ravel())[0, 1] > 0.85
+            # a box half a box off would not match
+            off = full[y0 - margin:y1 + margin, x0 - margin + (x1 - x0) // 2:x1 + margin + (x1 - x0) // 2]
+            assert np.corrcoef(off.astype(np.float32).ravel(), crop.ravel())[0, 1] < 0.9
+
+
+def test_a_bitonal_page_is_kept_whole_and_exact():
+    page = np.full((400, 300), 255, np.uint8)
+    cv2.rectangle(page, (50, 50), (120, 130), 0, 3)
+    data, scale = encode_page(page, 300)
+    assert scale == 1.0 and data[:4] == b"\x89PNG"
+    assert_array_equal(cv2.imdecode(np.frombuffer(data, np.uint8), cv2.IMREAD_UNCHANGED), page)
+
+
+def test_crops_are_kept_exactly_and_their_size_read_from_the_header():
+    rng = np.random.default_rng(3)
+    crop = rng.integers(0, 256, (97, 83)).astype(np.uint8)
+    data = encode_crop(crop)
+    assert checks.image_size(data) == (83, 97)
+    assert_array_equal(cv2.imdecode(np.frombuffer(data, np.uint8), cv2.IMREAD_GRAYSCALE), crop)
+    page, _ = encode_page(rng.integers(0, 256, (600, 500)).astype(np.uint8), 300)
+    assert page[:4] == b"RIFF" and checks.image_size(page) == (250, 300)
+
+
+def test_cells_cut_again_are_the_readers_model_input_from_the_crops_and_from_the_original(
+        read_batch, model, tmp_path):
+    path, scan = _copy(read_batch, tmp_path)
+    with Batch.open(path, read_only=True) as batch:
+        page_id = _page_id(batch)
+        expected = _reader_cells(model, scan, batch, page_id)
+        stored = StoredPages(batch)
+        for digit_id, edges in _boxes(batch, page_id):
+            cell = stored.cell(page_id, edges)
+            assert (cell.mnist is None) == (expected[digit_id] is None)
+            if cell.mnist is not None:
+                assert_array_equal(cell.mnist, expected[digit_id])
+        assert stored.sources == {"crop": len(expected), "original": 0, "page": 0}
+    _unusable_crops(path)
+    with Batch.open(path) as batch:
+        stored = StoredPages(batch)
+        for digit_id, edges in _boxes(batch, page_id):
+            cell = stored.cell(page_id, edges)
+            if expected[digit_id] is not None:
+                assert_array_equal(cell.mnist, expected[digit_id])
+        assert stored.sources["original"] == 1 and stored.missing == {}
+
+
+def test_learning_samples_are_cut_from_the_crops(read_batch, model, tmp_path):
+    path, scan = _copy(read_batch, tmp_path, move_scan=True)  # the scan is not needed
+    with Batch.open(path) as batch:
+        page_id = _page_id(batch)
+        field = batch.rows("SELECT id, value FROM fields WHERE page_id = ? AND value != '' "
+                           "AND gap = 0 ORDER BY id", (page_id,))[0]
+        set_field(batch, field[0], field[1], reviewer="ada")
+        _crops, cells, _labels, refs = labelled_samples(batch)
+        assert len(refs) == len(field[1]) and all(c is not None for c in cells)
+    with Batch.open(path, read_only=True) as batch:
+        shutil.copy(read_batch[1], scan)
+        expected = _reader_cells(model, scan, batch, page_id)
+    for cell, ref in zip(cells, refs):
+        assert_array_equal(cell, expected[ref.digit_id])
+
+
+def test_a_reread_after_the_scan_was_moved_names_it_and_keeps_the_stored_values(read_batch, tmp_path):
+    path, scan = _copy(read_batch, tmp_path, move_scan=True)
+    _unusable_crops(path)
+    with Batch.open(path) as batch:
+        before = batch.rows("SELECT id, prediction, confidence, model_version, value FROM digits ORDER BY id")
+        summary = reread_unchecked(batch, FakeModel("fake-2"))
+        assert summary.missing == {str(scan): "not found"}
+        assert summary.kept == sum(1 for r in before if r["model_version"] is not None) > 0
+        assert summary.digits == 0
+        assert str(scan) in summary.missing_lines()[0]
+        after = batch.rows("SELECT id, prediction, confidence, model_version, value FROM digits ORDER BY id")
+        assert [tuple(r) for r in after] == [tuple(r) for r in before]
+    # put back, but changed: not used either
+    scan.write_bytes(b"not the scan any more")
+    with Batch.open(path) as batch:
+        assert reread_unchecked(batch, FakeModel("fake-2")).missing == {str(scan): "changed since it was read"}
+
+
+def test_a_reread_with_the_crops_needs_no_scan(read_batch, tmp_path):
+    path, scan = _copy(read_batch, tmp_path, move_scan=True)
+    with Batch.open(path) as batch:
+        summary = reread_unchecked(batch, FakeModel("fake-2"))
+        assert summary.missing == {} and summary.kept == 0 and summary.digits > 0
+        versions = {r[0] for r in batch.rows("SELECT model_version FROM digits WHERE NOT blank")}
+        assert versions == {"fake-2"}
+
+
+def test_a_format_4_batch_is_upgraded_and_opens(read_batch, tmp_path):
+    path, scan = _copy(read_batch, tmp_path)
+    with Batch.open(path, read_only=True) as batch:
+        page_id = _page_id(batch)
+        full = batch.page_image(page_id)
+    conn = sqlite3.connect(path)  # as Inkcount wrote format 4: the page image whole, as PNG
+    with conn:
+        conn.execute("UPDATE page_images SET png = ?", (encode_png(full),))
+        conn.execute("UPDATE digits SET crop_png = ?", (encode_png(np.full((5, 5), 255, np.uint8)),))
+    for sql in ("ALTER TABLE page_images DROP COLUMN scale", "ALTER TABLE page_images DROP COLUMN width",
+                "ALTER TABLE page_images DROP COLUMN height", "ALTER TABLE files DROP COLUMN location",
+                "PRAGMA user_version = 4"):
+        conn.execute(sql)
+    tables = {name: frozenset(r[1] for r in conn.execute(f"PRAGMA table_info({name})"))
+              for (name,) in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    conn.close()
+    assert tables == checks.expected_tables(4)
+    with Batch.open(path) as batch:
+        assert batch.rows("PRAGMA user_version")[0][0] == 5
+        stored = batch.stored_page(page_id)
+        assert stored.scale == 1.0 and stored.exact
+        assert_array_equal(batch.page_image(page_id), full)
+        assert batch.rows("SELECT location FROM files WHERE sha256 IS NOT NULL")[0][0] is None
+        scan.rename(scan.with_name("gone.png"))  # the path as given is gone too: cut from the exact page
+        pages = StoredPages(batch)
+        edges = _boxes(batch, page_id)[0][1]
+        assert pages.cell(page_id, edges) is not None
+        assert pages.sources["page"] == 1 and pages.missing
