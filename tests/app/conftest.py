@@ -64,3 +64,17 @@ def window(qtbot, window_settings):
     yield w
     w.close()
     assert w.thread is None, "a reading thread was left running"
+
+
+@pytest.fixture
+def editor(qtbot, tmp_path):
+    """The template editor on a copy of the sample orchard card's template, shown."""
+    from app.views.template_editor import TemplateEditor
+    from recognizer.forms.template_file import load_template
+
+    path = tmp_path / "card.json"
+    path.write_bytes((ROOT / "sample_forms" / "orchard_card.json").read_bytes())
+    e = TemplateEditor(load_template(path), path, loaded=True)
+    qtbot.addWidget(e)
+    e.show()
+    return e

@@ -83,10 +83,14 @@ def test_a_round_runs_in_the_background_and_says_what_it_gained(learning_window,
     controller = window.controller
     assert window.learn_action.isChecked() and window.model_panel.learn_box.isChecked()
     assert "every 40 digits you check" in window.model_panel.learning.text()
+    steps: list[str] = []
+    controller.learning_progress.connect(steps.append)
     with qtbot.waitSignal(controller.learning_started, timeout=10_000):
         decided = _check(window, EVERY)
     assert controller.learning and window.status.learning.isVisible()
     assert window.stop_learning_action.isEnabled()
+    # the round has gathered its digits: those checked from now on are for the next round
+    qtbot.waitUntil(lambda: any(t.startswith("Learning from") for t in steps), timeout=ROUND_TIMEOUT)
     # never two at once, and Model > Retrain waits for it
     _check(window, EVERY)
     assert sum(1 for job in controller.jobs if job is controller._learning) == 1 and len(controller.jobs) == 1

@@ -15,18 +15,6 @@ CARD = ROOT / "sample_forms" / "orchard_card.json"
 BLANK = ROOT / "sample_forms" / "blank_card.png"
 
 
-@pytest.fixture
-def editor(qtbot, tmp_path):
-    from app.views.template_editor import TemplateEditor
-
-    path = tmp_path / "card.json"
-    path.write_bytes(CARD.read_bytes())
-    e = TemplateEditor(load_template(path), path, loaded=True)
-    qtbot.addWidget(e)
-    e.show()
-    return e
-
-
 def _fields(path: Path) -> dict[str, dict]:
     return {f["name"]: f for f in json.loads(path.read_text(encoding="utf-8"))["fields"]}
 

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-from pathlib import Path
 from types import SimpleNamespace
 
 from PySide6.QtCore import QEvent, QObject, QPointF, Qt, Signal
@@ -15,8 +14,6 @@ from recognizer.batch.queries import page_summaries
 from recognizer.forms.template_file import load_template
 from recognizer.review import CONFIRMED, TO_CHECK, confirm, set_field
 
-ROOT = Path(__file__).resolve().parents[2]
-CARD = ROOT / "sample_forms" / "orchard_card.json"
 
 
 def _actions(path_or_batch, field_id: int) -> int:
@@ -27,19 +24,7 @@ def _actions(path_or_batch, field_id: int) -> int:
 # ---------------------------------------------------------------- 1. template editor keeps edits
 
 
-def _editor(qtbot, tmp_path):
-    from app.views.template_editor import TemplateEditor
-
-    path = tmp_path / "card.json"
-    path.write_bytes(CARD.read_bytes())
-    e = TemplateEditor(load_template(path), path, loaded=True)
-    qtbot.addWidget(e)
-    e.show()
-    return e
-
-
-def test_a_sum_rule_typed_is_kept_when_another_field_is_clicked(qtbot, tmp_path):
-    editor = _editor(qtbot, tmp_path)
+def test_a_sum_rule_typed_is_kept_when_another_field_is_clicked(editor, qtbot, tmp_path):
     editor.select("crates_1")
     editor.sums.setPlainText("total_crates = crates_1 + crates_2")
     editor._clicked(QPointF(*editor.template.field("row_number").boxes[0].centre))
@@ -50,8 +35,7 @@ def test_a_sum_rule_typed_is_kept_when_another_field_is_clicked(qtbot, tmp_path)
     assert rules == [{"rule": "sum", "total": "total_crates", "parts": ["crates_1", "crates_2"]}]
 
 
-def test_name_and_type_edits_are_kept_when_another_field_is_clicked(qtbot, tmp_path):
-    editor = _editor(qtbot, tmp_path)
+def test_name_and_type_edits_are_kept_when_another_field_is_clicked(editor, qtbot, tmp_path):
     editor.select("grower_number")
     editor.name_edit.setText("member")
     editor.type_box.setCurrentIndex(editor.type_box.findData("code"))
@@ -66,8 +50,7 @@ def test_name_and_type_edits_are_kept_when_another_field_is_clicked(qtbot, tmp_p
     assert saved.field("row_number").maximum == 150
 
 
-def test_a_refused_edit_keeps_the_field_and_says_why(qtbot, tmp_path):
-    editor = _editor(qtbot, tmp_path)
+def test_a_refused_edit_keeps_the_field_and_says_why(editor, qtbot, tmp_path):
     editor.select("row_number")
     editor.name_edit.setText("block_number")  # used twice
     editor.select("crates_1")

@@ -10,9 +10,7 @@ from __future__ import annotations
 
 import os
 import sqlite3
-import struct
 import tracemalloc
-import zlib
 from pathlib import Path
 
 import pytest
@@ -26,6 +24,7 @@ from recognizer.ingest import ingest_scans
 from recognizer.review import confirm, set_field
 from tests.support.batches import FakeModel, add_page, fake_reader, new_batch
 from tests.support.cli import run
+from tests.support.hostile import png_bomb
 
 
 @pytest.fixture
@@ -109,19 +108,8 @@ def test_stored_values_of_the_wrong_shape(path: Path, sql: str, message: str) ->
     _refused(path, message)
 
 
-def _png_bomb(width: int, height: int) -> bytes:
-    """A real grey PNG of ``width`` x ``height`` white pixels, deflated to almost nothing."""
-    def chunk(kind: bytes, data: bytes) -> bytes:
-        return struct.pack(">I", len(data)) + kind + data + struct.pack(">I", zlib.crc32(kind + data))
-    packer = zlib.compressobj(1)
-    row = b"\x00" + b"\xff" * width
-    body = b"".join(packer.compress(row) for _ in range(height)) + packer.flush()
-    return (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", struct.pack(">IIBBBBB", width, height, 8, 0, 0, 0, 0))
-            + chunk(b"IDAT", body) + chunk(b"IEND", b""))
-
-
 def test_a_page_image_and_a_crop_that_are_decompression_bombs(path: Path) -> None:
-    bomb = _png_bomb(12_000, 12_000)  # 144 million pixels in a fraction of a megabyte
+    bomb = png_bomb(12_000, 12_000)  # 144 million pixels in a fraction of a megabyte
     assert len(bomb) < 1_000_000
     _alter(path, "UPDATE page_images SET png = ?",
            "UPDATE digits SET crop_png = ? WHERE state IN ('corrected', 'confirmed')", params=(bomb,))

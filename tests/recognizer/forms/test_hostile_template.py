@@ -12,14 +12,13 @@ import base64
 import json
 import time
 import tracemalloc
-import zlib
-import struct
 from pathlib import Path
 
 import pytest
 
 from recognizer.forms.template_file import TemplateFileError, load_template, save_template
 from tests.recognizer.forms.small_templates import crates_template
+from tests.support.hostile import png_bomb
 
 
 @pytest.fixture
@@ -89,19 +88,8 @@ def test_200000_boxes(tmp_path: Path, good: dict) -> None:
     _refused(tmp_path, json.dumps(good), "2000 fields; a template holds at most 500")
 
 
-def _png_bomb(width: int, height: int) -> bytes:
-    """A grey PNG of ``width`` x ``height`` white pixels, deflated to almost nothing."""
-    def chunk(kind: bytes, data: bytes) -> bytes:
-        return struct.pack(">I", len(data)) + kind + data + struct.pack(">I", zlib.crc32(kind + data))
-    packer = zlib.compressobj(1)
-    row = b"\x00" + b"\xff" * width
-    body = b"".join(packer.compress(row) for _ in range(height)) + packer.flush()
-    return (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", struct.pack(">IIBBBBB", width, height, 8, 0, 0, 0, 0))
-            + chunk(b"IDAT", body) + chunk(b"IEND", b""))
-
-
 def test_a_reference_image_that_is_a_decompression_bomb(tmp_path: Path, good: dict) -> None:
-    good["reference"]["image_png"] = base64.b64encode(_png_bomb(20_000, 20_000)).decode("ascii")
+    good["reference"]["image_png"] = base64.b64encode(png_bomb(20_000, 20_000)).decode("ascii")
     tracemalloc.start()
     try:
         _refused(tmp_path, json.dumps(good), "the image is 20000 x 20000 pixels, larger than the page")
