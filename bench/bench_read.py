@@ -13,7 +13,7 @@ under 600 MB for the 50 pages. ``inkcount read`` includes its start (imports,
 the model, about 0.5 s), which weighs less the more pages are read.
 
 To see where the time of a page goes: ``python -m cProfile -s tottime -m
-recognizer.cli read FOLDER --out /tmp/v.csv -q`` on the kept pages.
+recognizer.cli read FOLDER --out values.csv -q`` on the kept pages.
 
 Machines here are shared and noisy: compare the ratios from one run, not
 seconds across runs.
