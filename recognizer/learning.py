@@ -433,8 +433,7 @@ def _sent_to_person(model: DigitModel, cells: np.ndarray, settings: BatchSetting
     """How many of ``cells`` would go to a person, at the threshold the batch would have with ``model``."""
     if not len(cells):
         return 0
-    threshold = (model.threshold_for(settings.target_error) if settings.threshold_source == "target"
-                 else settings.threshold)
+    threshold = settings.threshold_with(model)
     return int(sum(digit_to_check(*reading_of(p), threshold) for p in model.predict_proba(cells)))
 
 

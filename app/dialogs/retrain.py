@@ -293,7 +293,7 @@ class RetrainDialog(QDialog):
 
     def _on_reread(self, summary: RereadSummary) -> None:
         self.summary = summary
-        missing = getattr(summary, "missing", {}) or {}
+        missing = summary.missing
         gone = (f" {len(missing):,} scan file(s) needed for it were not found ({', '.join(sorted(map(str, missing))[:3])}"
                 f"{'…' if len(missing) > 3 else ''}); their boxes keep their reading." if missing else "")
         self.step.setText(f"This batch now uses {self.result.model.version}: {summary.digits:,} unchecked digits "

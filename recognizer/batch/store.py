@@ -74,11 +74,11 @@ from recognizer.batch.opening import (
     leftover, lock_for_writing, worth_a_look,
 )
 from recognizer.batch.lock import WriterLock
-from recognizer.digits.model import timestamp
+from recognizer.digits.model import DigitModel, timestamp
 from recognizer.reading.page import PageRead
 from recognizer.batch.flags import refresh_layout, refresh_states
 from recognizer.states import DEFAULT_TARGET_ERROR, State
-from recognizer.scans.files import ScanProblem
+from recognizer.scans.files import ScanProblem, printable_name
 from recognizer.forms.template import Template, TemplateError
 from recognizer.forms.template_file import template_from_json, template_to_json
 
@@ -159,6 +159,10 @@ class BatchSettings:
     learning_last: dict[str, Any] | None = None
     flag_rule: int = 1
 
+    def threshold_with(self, model: DigitModel) -> float | None:
+        """The threshold the batch has with ``model``: the model's for the target, or the one set by hand."""
+        return float(model.threshold_for(self.target_error)) if self.threshold_source == "target" else self.threshold
+
 
 _SETTING_NAMES = frozenset(f.name for f in dataclasses.fields(BatchSettings))
 
@@ -181,18 +185,8 @@ def decode_png(data: bytes, path: str | os.PathLike | None = None) -> np.ndarray
     return image
 
 
-def stored_path(path: str | os.PathLike) -> str:
-    """A file's path as the batch keeps it: as given, with bytes of the name that are not UTF-8
-    written as ``\\xNN`` (visible, and two such names stay apart)."""
-    text = os.fsdecode(os.fspath(path))
-    try:
-        text.encode("utf-8")
-        return text
-    except UnicodeEncodeError:
-        try:
-            return text.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
-        except UnicodeEncodeError:
-            return text.encode("utf-8", "backslashreplace").decode("utf-8")
+#: A file's path as the batch keeps it (the one rule, :func:`recognizer.scans.files.printable_name`).
+stored_path = printable_name
 
 
 @dataclass(frozen=True)

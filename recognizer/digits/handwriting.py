@@ -384,6 +384,18 @@ CellCutter = Callable[[np.ndarray, BoxRect, float], "np.ndarray | None"]
 _MM_PER_INCH = 25.4
 
 
+def fit_glyph(glyph: np.ndarray, box_w: float, box_h: float, *, fill: float, widest: float) -> np.ndarray:
+    """``glyph`` (its ink, trimmed to its bounds) scaled to ``fill`` of a box's height, aspect kept,
+    and narrowed to at most ``widest`` of the box's width; at least 2 x 1 pixels."""
+    h = fill * box_h
+    w = h * glyph.shape[1] / glyph.shape[0]
+    if w > widest * box_w:
+        w, h = widest * box_w, widest * box_w * glyph.shape[0] / glyph.shape[1]
+    h_px, w_px = max(2, int(round(h))), max(1, int(round(w)))
+    return cv2.resize(glyph, (w_px, h_px), interpolation=cv2.INTER_AREA if h_px < glyph.shape[0]
+                      else cv2.INTER_LINEAR)
+
+
 def write_in_box(writer: Writer, digit: int, *, rng: np.random.Generator,
                  touch: float = 0.2) -> tuple[np.ndarray, BoxRect, float]:
     """Write one digit into a printed box on a small scanned piece of paper.
@@ -427,13 +439,8 @@ def write_in_box(writer: Writer, digit: int, *, rng: np.random.Generator,
     glyph = glyph[ys.min():ys.max() + 1, xs.min():xs.max() + 1].astype(np.float32) / 255.0
     crossing = rng.random() < touch
     fill = rng.uniform(0.85, 1.12) if crossing else rng.uniform(0.55, 0.9)
-    h = fill * box_h
-    w = h * glyph.shape[1] / glyph.shape[0]
-    if w > 0.95 * box_w:
-        w, h = 0.95 * box_w, 0.95 * box_w * glyph.shape[0] / glyph.shape[1]
-    h_px, w_px = max(2, int(round(h))), max(1, int(round(w)))
-    ink = cv2.resize(glyph, (w_px, h_px), interpolation=cv2.INTER_AREA if h_px < glyph.shape[0]
-                     else cv2.INTER_LINEAR)
+    ink = fit_glyph(glyph, box_w, box_h, fill=fill, widest=0.95)
+    h_px, w_px = ink.shape
     slack_x, slack_y = (box_w - w_px) / 2.0, (box_h - h_px) / 2.0
     dx, dy = rng.uniform(-0.6, 0.6) * slack_x, rng.uniform(-0.6, 0.6) * slack_y
     if crossing:  # run into a wall: the top or bottom one mostly, a side one now and then

@@ -47,7 +47,7 @@ from pathlib import Path
 from typing import TextIO
 
 from recognizer.reading.page import PageRead
-from recognizer.scans.files import ScanProblem
+from recognizer.scans.files import ScanProblem, printable_name
 from recognizer.states import common_layout, layout_reasons
 
 __all__ = ["ValuesTable", "DigitsWriter", "field_sort_key", "open_csv", "csv_writer", "safe_cell"]
@@ -71,10 +71,7 @@ def safe_cell(cell: object) -> object:
     """
     if not isinstance(cell, str):
         return cell
-    try:
-        cell.encode("utf-8")
-    except UnicodeEncodeError:
-        cell = cell.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+    cell = printable_name(cell)
     if cell.startswith(_FORMULA_START) and not _NUMBER.fullmatch(cell):
         return "'" + cell
     return cell

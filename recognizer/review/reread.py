@@ -60,8 +60,8 @@ def reread_unchecked(batch: Batch, model: DigitModel, *, model_path: str | None 
         values: dict[str, Any] = {"model_version": model.version}
         if model_path is not None:
             values["model_path"] = model_path
-        if current.threshold_source == "target":
-            summary.threshold = float(model.threshold_for(current.target_error))
+        summary.threshold = current.threshold_with(model)
+        if summary.threshold != current.threshold:
             values["threshold"] = summary.threshold
         batch.update_settings(conn, **values)
         record_action(conn, reviewer=reviewer, kind="reread", old=current.model_version, new=model.version)

@@ -62,6 +62,7 @@ __all__ = [
     "load_page",
     "iter_pages",
     "estimate_dpi",
+    "printable_name",
 ]
 
 IMAGE_SUFFIXES = frozenset({".png", ".jpg", ".jpeg", ".bmp", ".tif", ".tiff"})
@@ -110,6 +111,21 @@ class Page:
     dpi_origin: str
     warnings: list[str] = field(default_factory=list)
     colour: np.ndarray | None = field(default=None, repr=False)
+
+
+def printable_name(path: str | os.PathLike) -> str:
+    """A file's path as text any UTF-8 file or terminal takes: bytes of the name that are not UTF-8
+    written as ``\\xNN`` (visible, and two such names stay apart). Used for the batch's stored paths,
+    the CSV files and the residual statement alike."""
+    text = os.fsdecode(os.fspath(path))
+    try:
+        text.encode("utf-8")
+        return text
+    except UnicodeEncodeError:
+        try:
+            return text.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+        except UnicodeEncodeError:  # not from the file system: a lone surrogate of another kind
+            return text.encode("utf-8", "backslashreplace").decode("utf-8")
 
 
 @dataclass(frozen=True)

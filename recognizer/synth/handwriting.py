@@ -10,6 +10,7 @@ from recognizer.digits.handwriting import (
     Stroke,
     Writer,
     draw_stray_mark,
+    fit_glyph,
 )
 
-__all__ = ["STRAY_MARK_KINDS", "Allograph", "Stroke", "Writer", "draw_stray_mark"]
+__all__ = ["STRAY_MARK_KINDS", "Allograph", "Stroke", "Writer", "draw_stray_mark", "fit_glyph"]

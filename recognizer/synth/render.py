@@ -21,7 +21,7 @@ import cv2
 import numpy as np
 
 from recognizer.synth.colour import INK_RGB, PRINT_RGB, multiply, tint, to_grey
-from recognizer.synth.handwriting import Writer, draw_stray_mark
+from recognizer.synth.handwriting import Writer, draw_stray_mark, fit_glyph
 from recognizer.synth.layouts import (
     LINE_MM, MM_PER_INCH, DigitSource, FieldSpec, FormLayout, Furniture, Line, Logo, Rect, Table, Text,
 )
@@ -344,13 +344,8 @@ def _write_digit(layer: np.ndarray, box: Box, ink: np.ndarray, darkness: float,
     box_w, box_h = bx1 - bx0, by1 - by0
     crossing = rng.random() < 0.04  # now and then a digit runs over a wall
     fill = rng.uniform(0.85, 1.05) if crossing else rng.uniform(0.6, 0.8)
-    h = fill * box_h
-    w = h * ink.shape[1] / ink.shape[0]
-    if w > 0.9 * box_w:
-        w, h = 0.9 * box_w, 0.9 * box_w * ink.shape[0] / ink.shape[1]
-    h_px, w_px = max(2, int(round(h))), max(1, int(round(w)))
-    scaled = cv2.resize(ink, (w_px, h_px), interpolation=cv2.INTER_AREA
-                        if h_px < ink.shape[0] else cv2.INTER_LINEAR)
+    scaled = fit_glyph(ink, box_w, box_h, fill=fill, widest=0.9)
+    h_px, w_px = scaled.shape
     slack_x, slack_y = (box_w - w_px) / 2, (box_h - h_px) / 2
     dx = rng.uniform(-0.5, 0.5) * slack_x
     dy = rng.uniform(-0.5, 0.5) * slack_y
