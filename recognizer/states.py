@@ -114,6 +114,18 @@ changes only its own field. Against the batch's layout:
   last field is flagged for the fields missing after it (``fields
   missing``).
 
+The fields missing are also named (:func:`missing_fields`): the page's box
+counts are aligned to the batch's in order (Needleman and Wunsch's global
+alignment, 1970: the same count scores 2, another count -1, a field missing
+or added -1; the scores are our own choice, no source), and each field of
+the batch's layout left without a counterpart is named, with its number of
+boxes, on the page's field that stands in its place (the next field found,
+or the last one when the page stops early): a reason ``missing: f05 (4
+boxes)`` beside ``layout differs`` or ``fields missing``. A run of fields
+with the same box count leaves the alignment free to say which of them is
+missing; it names the last of them (the longest same beginning is kept), which
+shows where a field was lost, not which one for sure.
+
 Field state
 -----------
 From the states of its digits (the written boxes, plus any empty box a person
@@ -163,6 +175,7 @@ __all__ = [
     "page_layout",
     "common_layout",
     "layout_reasons",
+    "missing_fields",
     "reasons_in_words",
 ]
 
@@ -235,6 +248,7 @@ REASON_WORDS = {
 DIGIT_REASONS = frozenset({Reason.LOW_CONFIDENCE.value, Reason.NOT_A_DIGIT.value})
 
 _RULE = "rule "
+_MISSING = "missing: "
 
 
 def digit_to_check(prediction: str, confidence: float, threshold: float | None) -> bool:
@@ -383,7 +397,7 @@ def check_field(
     box_doubts: Sequence[str] = (),
     rule_problems: Sequence[str] = (),
     page_warnings: Sequence[str] = (),
-    layout: str | None = None,
+    layout: Sequence[str] = (),
 ) -> tuple[str, ...]:
     """The whole rule for one field: its reasons to be checked (empty: none).
 
@@ -397,9 +411,10 @@ def check_field(
     page_warnings : sequence of str
         All the warnings of its page; the rule keeps those that touch it
         (:func:`warnings_touching`).
-    layout : str or None
-        Its layout reason from :func:`layout_reasons` (``"layout differs"``,
-        ``"fields missing"``), None when its page's layout does not concern it.
+    layout : sequence of str
+        Its layout reasons from :func:`layout_reasons` (``"layout differs"``
+        or ``"fields missing"``, then perhaps the fields missing there), empty
+        when its page's layout does not concern it.
 
     >>> check_field([("1", 0.995), ("2", 0.995)], 0.994)
     ('value unsure',)
@@ -415,8 +430,8 @@ def check_field(
         box_doubts=box_doubts, rule_problems=rule_problems,
         page_warnings=warnings_touching(page_warnings, box_doubts=box_doubts, confidences=digits,
                                         threshold=threshold),
-        odd_layout=layout == Reason.LAYOUT_DIFFERS, fields_missing=layout == Reason.FIELDS_MISSING,
-    )
+        odd_layout=Reason.LAYOUT_DIFFERS in layout, fields_missing=Reason.FIELDS_MISSING in layout,
+    ) + tuple(r for r in layout if r.startswith(_MISSING))
 
 
 def field_level(why: Iterable[str]) -> bool:
@@ -487,20 +502,22 @@ def common_layout(tallies: Iterable[tuple[str, int, int]]) -> str | None:
     return None if best is None else best[0]
 
 
-def layout_reasons(layout: str | None, common: str | None) -> dict[str, str]:
+def layout_reasons(layout: str | None, common: str | None) -> dict[str, tuple[str, ...]]:
     """The fields of a page that its layout puts in doubt, against the batch's layout.
 
-    Returns ``{field name: reason}`` with reason ``"layout differs"`` or
-    ``"fields missing"`` (see the module docstring); empty when the layouts
-    are the same or either is unknown.
+    Returns ``{field name: reasons}``: ``"layout differs"`` or ``"fields
+    missing"`` (see the module docstring), then, on the field standing where
+    fields of the batch's layout were not found, ``"missing: <names>"``
+    (:func:`missing_fields`); empty when the layouts are the same or either
+    is unknown.
 
     >>> a = page_layout([("f01", 5), ("f02", 8), ("f03", 2), ("f04", 3)])
     >>> layout_reasons(page_layout([("f01", 5), ("f02", 8), ("f03", 1), ("f04", 3)]), a)
-    {'f03': 'layout differs'}
+    {'f03': ('layout differs',)}
     >>> layout_reasons(page_layout([("f01", 5), ("f02", 2), ("f03", 3)]), a)
-    {'f02': 'layout differs', 'f03': 'layout differs'}
+    {'f02': ('layout differs', 'missing: f02 (8 boxes)'), 'f03': ('layout differs',)}
     >>> layout_reasons(page_layout([("f01", 5), ("f02", 8)]), a)
-    {'f02': 'fields missing'}
+    {'f02': ('fields missing', 'missing: f03 (2 boxes), f04 (3 boxes)')}
     """
     if layout is None or common is None or layout == common:
         return {}
@@ -510,17 +527,74 @@ def layout_reasons(layout: str | None, common: str | None) -> dict[str, str]:
         return {}
     if [name for name, _ in page] == [name for name, _ in batch]:
         differ = [i for i, (a, b) in enumerate(zip(page, batch)) if a != b]
-        return {name: Reason.LAYOUT_DIFFERS.value for name, _ in page[differ[0]:differ[-1] + 1]}
+        return {name: (Reason.LAYOUT_DIFFERS.value,) for name, _ in page[differ[0]:differ[-1] + 1]}
     first = next((i for i, (a, b) in enumerate(zip(page, batch)) if a != b), min(len(page), len(batch)))
+    missing = missing_fields(layout, common)
     if first == len(page):
-        return {page[-1][0]: Reason.FIELDS_MISSING.value}
-    return {name: Reason.LAYOUT_DIFFERS.value for name, _ in page[first:]}
+        reasons = {page[-1][0]: (Reason.FIELDS_MISSING.value,)}
+    else:
+        reasons = {name: (Reason.LAYOUT_DIFFERS.value,) for name, _ in page[first:]}
+    for name, lost in missing.items():
+        reasons[name] = reasons.get(name, (Reason.LAYOUT_DIFFERS.value,)) + (_MISSING + lost,)
+    return reasons
+
+
+def missing_fields(layout: str, common: str) -> dict[str, str]:
+    """The batch's fields not found on a page, named on the page's field standing in their place.
+
+    The box counts of the page's fields are aligned to the batch's (see the
+    module docstring); each run of the batch's fields left without a
+    counterpart is named, ``"f05 (4 boxes)"``, on the page's next field, or
+    on its last field when the run ends the batch's layout.
+
+    >>> a = page_layout([("f01", 5), ("f02", 8), ("f03", 2), ("f04", 3)])
+    >>> missing_fields(page_layout([("f01", 5), ("f02", 2), ("f03", 3)]), a)
+    {'f02': 'f02 (8 boxes)'}
+    >>> missing_fields(page_layout([("f01", 8), ("f02", 3)]), a)
+    {'f01': 'f01 (5 boxes)', 'f02': 'f03 (2 boxes)'}
+    """
+    page = [int(n) for _, n in json.loads(layout)]
+    names = [(str(name), int(n)) for name, n in json.loads(common)]
+    batch = [n for _, n in names]
+    rows, cols = len(page) + 1, len(batch) + 1
+    score = [[0] * cols for _ in range(rows)]
+    for i in range(1, rows):
+        score[i][0] = -i
+    for j in range(1, cols):
+        score[0][j] = -j
+    for i in range(1, rows):
+        for j in range(1, cols):
+            pair = 2 if page[i - 1] == batch[j - 1] else -1
+            score[i][j] = max(score[i - 1][j - 1] + pair, score[i - 1][j] - 1, score[i][j - 1] - 1)
+    lost_before: dict[int, list[int]] = {}  # page field index -> batch fields missing just before it
+    i, j = len(page), len(batch)
+    while i or j:
+        # on a tie a field is taken as missing as late as possible: the longest same beginning is kept
+        pair = 2 if i and j and page[i - 1] == batch[j - 1] else -1
+        if j and score[i][j] == score[i][j - 1] - 1:
+            lost_before.setdefault(i, []).insert(0, j - 1)
+            j -= 1
+        elif i and j and score[i][j] == score[i - 1][j - 1] + pair:
+            i, j = i - 1, j - 1
+        else:
+            i -= 1
+    out: dict[str, str] = {}
+    page_names = [str(name) for name, _ in json.loads(layout)]
+    for i, lost in sorted(lost_before.items()):
+        if not page_names:
+            break
+        at = page_names[min(i, len(page_names) - 1)]
+        words = ", ".join(f"{names[k][0]} ({names[k][1]} box{'es' if names[k][1] != 1 else ''})" for k in lost)
+        out[at] = f"{out[at]}, {words}" if at in out else words
+    return out
 
 
 def reasons_in_words(why: Iterable[str]) -> str:
-    """The reasons a field is flagged, in words; a broken template rule shows as the rule says it.
+    """The reasons a field is flagged, in words; a broken template rule shows as the rule says it,
+    and fields not found on the page by their names.
 
     A reason without words of its own (none is made) shows as "flagged" rather than as its key.
     """
     return "; ".join(f"a rule is broken — {w[len(_RULE):]}" if w.startswith(_RULE)
+                     else f"not found on this page: {w[len(_MISSING):]}" if w.startswith(_MISSING)
                      else REASON_WORDS.get(w, "flagged") for w in why)

@@ -10,6 +10,8 @@ Keys (the panel has the focus)::
                 replaces the value read in that box)
     Delete      "no digit in this box"
     Backspace   back to the previous box, restoring what was there
+    (past the last box, digits typed make the value longer than the boxes
+    found: a box the reader missed, a broken wall; Backspace takes them back)
     Left/Right  move the cursor without changing anything (Home/End: first/last box)
     Enter       save (confirm as it stands, or the value typed) and go to the next field
     Ctrl+U, *   the field cannot be read
@@ -98,7 +100,8 @@ __all__ = ["ReviewPanel", "BoxTile", "ORDER_CHOICES", "KEY_HELP"]
 #: Review orders offered, with their words.
 ORDER_CHOICES = (("page", "Page by page"), ("confidence", "Least sure first"))
 KEY_HELP = ("0-9: replace the digit in the blue box · ←/→, Home/End: move the blue box · Enter: save and go to the next field · "
-            "Delete: no digit in this box · Backspace: previous box · Ctrl+U or *: field unreadable · "
+            "Delete: no digit in this box · Backspace: previous box · past the last box: more digits · "
+            "Ctrl+U or *: field unreadable · "
             "Ctrl+Z: undo · PgDn/PgUp: next/previous field without saving · Esc: forget what you typed")
 #: States a person set: Enter on such a field writes nothing again.
 _HANDLED = (CONFIRMED, CORRECTED, UNREADABLE)
@@ -117,6 +120,14 @@ WAIT_WORDS = ("One moment: the unchecked digits are being read again with what w
               "corrections; this is saved as soon as that ends (any other key: not saved).")
 #: Said when Enter meets a field whose reading changed since the clerk last looked.
 SAVE_AGAIN_WORDS = "This field's reading changed (learning); it is shown as it reads now. Enter again saves it."
+#: Said when a digit is typed past the last box found (a broken wall can hide a box).
+BEYOND_WORDS = ("Typed past the last box found: the value now has more digits than boxes "
+                "(for a box the reader missed). Backspace takes it back.")
+
+
+def _more(n: int) -> str:
+    """The value label's note on digits typed past the last box."""
+    return "" if not n else f"{n} digit{'s' if n > 1 else ''} past the last box, "
 
 
 def _typing_slots(view: FieldView) -> list:
@@ -215,14 +226,16 @@ class BoxTile(QWidget):
 
 @dataclass
 class _Edit:
-    """What the clerk typed into the field shown: one entry per box (None = untouched)."""
+    """What the clerk typed into the field shown: one entry per box (None = untouched), and the
+    digits typed past the last box (a field found with fewer boxes than it has, a wall broken)."""
 
     typed: list[str | None]
     cursor: int = 0
+    beyond: str = ""
 
     @property
     def touched(self) -> bool:
-        return any(t is not None for t in self.typed)
+        return bool(self.beyond) or any(t is not None for t in self.typed)
 
 
 class ReviewPanel(QFrame):
@@ -611,7 +624,8 @@ class ReviewPanel(QFrame):
             tile.update()
         value = self.typed_value() if self.edit.touched else view.value
         self.value_label.setText(f"<span style='font-size:18pt'>Value: <b>{value or '(empty)'}</b></span>"
-                                 + ("  <i>(typed, Enter saves)</i>" if self.edit.touched else ""))
+                                 + (f"  <i>(typed, {_more(len(self.edit.beyond))}Enter saves)</i>"
+                                    if self.edit.touched else ""))
 
     def _fit_tiles(self) -> None:
         """Fit the field's boxes to the panel's width: scaled down on one row while they stay legible
@@ -702,19 +716,28 @@ class ReviewPanel(QFrame):
         for t, d in zip(self.edit.typed, _typing_slots(self.view)):
             v = t if t is not None else self._shown_value(self.view, d)
             out.append("" if v in (NOT_A_DIGIT_MARK, None) else v)
-        return "".join(out)
+        return "".join(out) + self.edit.beyond
 
     def type_digit(self, ch: str) -> None:
         if self.view is None or not self.edit.typed:
             return
         if self.edit.cursor >= len(self.edit.typed):
-            self.message.emit("That was the last box: Enter saves, Backspace goes back to the previous box.")
+            if not ch:
+                self.message.emit("That was the last box: Enter saves, Backspace goes back to the previous box.")
+                return
+            self.edit.beyond += ch
+            self.message.emit(BEYOND_WORDS)
+            self._render()
             return
         self.edit.typed[self.edit.cursor] = ch
         self.edit.cursor += 1
         self._render()
 
     def step_back(self) -> None:
+        if self.view is not None and self.edit.beyond:
+            self.edit.beyond = self.edit.beyond[:-1]
+            self._render()
+            return
         if self.view is None or self.edit.cursor == 0:
             return
         self.edit.cursor -= 1

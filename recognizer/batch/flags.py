@@ -136,11 +136,12 @@ def _query(conn: sqlite3.Connection) -> Query:
 @dataclass(frozen=True)
 class FieldCheck:
     """What the rule says about one field: its reasons (empty: nothing to check), the
-    warnings of its page that touch it, and its layout reason (None: its layout is the batch's)."""
+    warnings of its page that touch it, and its layout reasons (empty: its layout is the batch's
+    where this field is concerned)."""
 
     why: tuple[str, ...]
     page_warnings: tuple[str, ...]
-    layout: str | None
+    layout: tuple[str, ...]
 
 
 def field_checks(query: Query, where: str = "1", params: Sequence[Any] = (), *,
@@ -162,14 +163,14 @@ def field_checks(query: Query, where: str = "1", params: Sequence[Any] = (), *,
     ):
         readings[d["field_id"]].append((d["prediction"], float(d["confidence"])))
     commons = common_layouts(query) if any(r["odd_layout"] for r in rows) else {}
-    by_page: dict[int, dict[str, str]] = {}
+    by_page: dict[int, dict[str, tuple[str, ...]]] = {}
     checks = {}
     for r in rows:
-        layout = None
+        layout: tuple[str, ...] = ()
         if r["odd_layout"]:
             if r["page_id"] not in by_page:
                 by_page[r["page_id"]] = layout_reasons(r["layout"], commons.get(r["template"]))
-            layout = by_page[r["page_id"]].get(r["name"])
+            layout = by_page[r["page_id"]].get(r["name"], ())
         doubts, warnings = json.loads(r["doubts"]), json.loads(r["warnings"])
         mine = readings[r["id"]]
         why = check_field(mine, threshold, gap=bool(r["gap"]), box_doubts=doubts,

@@ -122,12 +122,12 @@ def fields_to_check(batch: Batch) -> list[FieldToCheck]:
     )
     # the reasons are read right after the rows; a field another thread flagged in between has none yet
     checks = field_checks(batch.rows, "f.state = ?", (to_check,), threshold=batch.settings.threshold)
-    none = FieldCheck((), (), None)
+    none = FieldCheck((), (), ())
     return [
         FieldToCheck(
             r["id"], r["file_id"], r["path"], r["page"], r["name"], r["position"], r["value"], r["read_value"],
             bool(r["gap"]), tuple(json.loads(r["doubts"])), tuple(json.loads(r["rule_problems"])),
-            checks.get(r["id"], none).page_warnings, checks.get(r["id"], none).layout is not None, r["lowest"],
+            checks.get(r["id"], none).page_warnings, bool(checks.get(r["id"], none).layout), r["lowest"],
             int(r["marks"]), int(r["unsure"]), checks.get(r["id"], none).why,
         )
         for r in rows

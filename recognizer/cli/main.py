@@ -20,6 +20,7 @@ from __future__ import annotations
 import argparse
 import signal
 import sys
+from collections import Counter
 from contextlib import ExitStack
 from importlib.metadata import entry_points
 from pathlib import Path
@@ -172,13 +173,18 @@ class _Tally:
         counts = self.table.reason_counts()
         if counts:
             lines.append("Why fields are to check (a field may have several reasons):")
-            lines += [f"  {n:5d}  {_reason_words(reason)}" for reason, n in counts.most_common()]
+            by_words: Counter = Counter()
+            for reason, n in counts.items():
+                by_words[_reason_words(reason)] += n
+            lines += [f"  {n:5d}  {words}" for words, n in by_words.most_common()]
         return "\n".join(lines)
 
 
 def _reason_words(reason: str) -> str:
     if reason in REASON_WORDS:
         return REASON_WORDS[Reason(reason)]
+    if reason.startswith("missing: "):
+        return "a field the other pages have was not found on the page"
     return "a template rule is broken" if reason.startswith("rule ") else "flagged"
 
 

@@ -97,11 +97,11 @@ class FieldRead:
         return [d for d in self.written if digit_to_check(d.text, d.confidence, threshold)]
 
     def reasons(self, threshold: float | None, *, page_warnings: Sequence[str] = (),
-                layout: str | None = None) -> tuple[str, ...]:
+                layout: Sequence[str] = ()) -> tuple[str, ...]:
         """Why a person must look at this field (:func:`recognizer.states.check_field`); empty if not.
 
         ``page_warnings`` are all its page's warnings (the rule keeps those
-        that can affect this field); ``layout`` is its reason from
+        that can affect this field); ``layout`` are its reasons from
         :func:`recognizer.states.layout_reasons`, if any.
         """
         return check_field(
@@ -159,7 +159,7 @@ class PageRead:
         template, or none); None judges the page alone (no layout reasons).
         """
         layouts = layout_reasons(self.layout(), common_layout)
-        return {f.name: f.reasons(threshold, page_warnings=self.warnings, layout=layouts.get(f.name))
+        return {f.name: f.reasons(threshold, page_warnings=self.warnings, layout=layouts.get(f.name, ()))
                 for f in self.fields}
 
 

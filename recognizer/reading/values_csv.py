@@ -149,7 +149,7 @@ class ValuesTable:
         page = "" if problem.page is None else str(problem.page)
         self.rows.append(_Row(str(problem.source), page, problem=problem.reason))
 
-    def _layout_reasons(self) -> list[dict[str, str]]:
+    def _layout_reasons(self) -> list[dict[str, tuple[str, ...]]]:
         """Per row, the fields its layout puts in doubt (:func:`recognizer.states.layout_reasons`)."""
         tallies: dict[str, dict[str, list[int]]] = {}
         for i, row in enumerate(self.rows):
@@ -172,7 +172,7 @@ class ValuesTable:
         counts: Counter = Counter()
         for row, layout in zip(self.rows, self._layout_reasons()):
             counts.update(row.why)
-            counts.update(layout.values())
+            counts.update(r for reasons in layout.values() for r in reasons)
         return counts
 
     def _names(self) -> list[str]:

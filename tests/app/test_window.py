@@ -85,6 +85,27 @@ def test_review_by_keys_correct_confirm_unreadable_undo(window, qtbot, sample_ba
     assert window.review.remaining == state_counts(window.batch)["fields"][TO_CHECK]
 
 
+def test_a_value_longer_than_the_boxes_found_can_be_typed_and_saved(window, qtbot, sample_batch):
+    # a field whose wall was broken is found with a box too few: the clerk types on past the last box
+    assert window.open_batch(sample_batch)
+    panel = window.review
+    panel.setFocus()
+    field = panel.view
+    n = len(panel.edit.typed)
+    qtbot.keyClick(panel, Qt.Key.Key_Home)
+    longer = "1234567890"[:n] + "5"
+    qtbot.keyClicks(panel, longer)
+    assert panel.edit.beyond == "5" and panel.typed_value() == longer
+    assert "past the last box" in panel.value_label.text()
+    qtbot.keyClicks(panel, "6")
+    qtbot.keyClick(panel, Qt.Key.Key_Backspace)  # Backspace takes back the digit typed past the end first
+    assert panel.typed_value() == longer
+    qtbot.keyClick(panel, Qt.Key.Key_Return)
+    row = _field(sample_batch, field.field_id)
+    assert row["value"] == longer and row["state"] == CORRECTED
+    assert panel.view.field_id != field.field_id
+
+
 def test_clicking_a_field_on_the_page_jumps_the_review(window, qtbot, sample_batch):
     assert window.open_batch(sample_batch)
     view = window.page_view

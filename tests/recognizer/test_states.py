@@ -32,6 +32,7 @@ from recognizer.states import (
     field_reasons,
     field_state,
     layout_reasons,
+    missing_fields,
     near_limit,
     page_layout,
     reasons_in_words,
@@ -153,19 +154,34 @@ def test_warnings_that_cannot_be_tied_to_fields_touch_every_field(warning):
 CARD = page_layout([("f01", 5), ("f02", 8), ("f03", 2), ("f04", 3), ("f05", 3)])
 
 
+LD, FM = ("layout differs",), ("fields missing",)
+
+
 @pytest.mark.parametrize("fields, expected", [
     ([("f01", 5), ("f02", 8), ("f03", 2), ("f04", 3), ("f05", 3)], {}),
-    ([("f01", 5), ("f02", 8), ("f03", 1), ("f04", 3), ("f05", 3)], {"f03": "layout differs"}),   # a box lost
+    ([("f01", 5), ("f02", 8), ("f03", 1), ("f04", 3), ("f05", 3)], {"f03": LD}),                  # a box lost
     ([("f01", 5), ("f02", 9), ("f03", 2), ("f04", 4), ("f05", 3)],                             # two fields: and
-     {"f02": "layout differs", "f03": "layout differs", "f04": "layout differs"}),           # those between
+     {"f02": LD, "f03": LD, "f04": LD}),                                                       # those between
     ([("f01", 5), ("f02", 2), ("f03", 3), ("f04", 3)],                                          # f02 missed: the
-     {"f02": "layout differs", "f03": "layout differs", "f04": "layout differs"}),           # names after shift
-    ([("f01", 5), ("f02", 8), ("f03", 2)], {"f03": "fields missing"}),                         # the end missed
-    ([("f01", 5), ("f02", 8), ("f03", 2), ("f04", 3), ("f05", 3), ("f06", 1)], {"f06": "layout differs"}),
-    ([("f01", 3), ("f02", 8)], {"f01": "layout differs", "f02": "layout differs"}),
+     {"f02": LD + ("missing: f02 (8 boxes)",), "f03": LD, "f04": LD}),                         # names after shift
+    ([("f01", 5), ("f02", 8), ("f03", 2)], {"f03": FM + ("missing: f04 (3 boxes), f05 (3 boxes)",)}),  # the end
+    ([("f01", 5), ("f02", 8), ("f03", 2), ("f04", 3), ("f05", 3), ("f06", 1)], {"f06": LD}),      # one added
+    ([("f01", 8), ("f02", 2), ("f03", 3), ("f04", 3)],                                          # the first missed
+     {"f01": LD + ("missing: f01 (5 boxes)",), "f02": LD, "f03": LD, "f04": LD}),
 ])
 def test_another_layout_flags_only_the_fields_it_puts_in_doubt(fields, expected):
     assert layout_reasons(page_layout(fields), CARD) == expected
+
+
+def test_the_fields_missing_are_named_where_they_were_lost():
+    # two fields lost at two places: each named on the page's field now standing in its place (of
+    # f04 and f05, both of 3 boxes, the alignment cannot tell which was lost: it names the last)
+    page = page_layout([("f01", 5), ("f02", 2), ("f03", 3)])
+    assert missing_fields(page, CARD) == {"f02": "f02 (8 boxes)", "f03": "f05 (3 boxes)"}
+    why = check_field([("1", 0.9999)], 0.99, layout=layout_reasons(page, CARD)["f02"])
+    assert why == ("layout differs", "missing: f02 (8 boxes)")
+    words = reasons_in_words(why)
+    assert "not found on this page: f02 (8 boxes)" in words and "missing:" not in words
 
 
 def test_no_layout_reasons_without_a_batch_layout():
@@ -303,4 +319,5 @@ def test_values_csv_and_batch_flag_the_same_fields_of_hand_made_pages(tmp_path):
         "card.png": set(),                       # read with a template: never another layout
     }
     assert table.reason_counts() == {"faint lines": 2, "boxes doubtful": 1, "skewed page": 3,
-                                     "layout differs": 1, "fields missing": 1, "value unsure": 1}
+                                     "layout differs": 1, "fields missing": 1, "value unsure": 1,
+                                     "missing: f03 (2 boxes)": 2}  # lost.png's and short.png's

@@ -94,7 +94,9 @@ def test_a_missing_field_flags_the_fields_whose_names_it_shifted(batch):
         add_page(batch, name, spec=card)
     add_page(batch, "lost.png", spec={"f01": SURE, "f02": card["f03"], "f03": card["f04"]})  # f02 not found
     assert [state(batch, "lost.png", n) for n in ("f01", "f02", "f03")] == [READ, TO_CHECK, TO_CHECK]
-    assert set(why(batch).values()) == {("layout differs",)}
+    assert why(batch) == {("lost.png", "f02"): ("layout differs", "missing: f02 (1 box)"),
+                          ("lost.png", "f03"): ("layout differs",)}
+    assert "not found on this page: f02 (1 box)" in ReviewQueue(batch).items()[0].words
 
 
 def test_fields_missing_at_the_end_flag_the_last_field_found(batch):
@@ -102,7 +104,7 @@ def test_fields_missing_at_the_end_flag_the_last_field_found(batch):
     for name in ("a.png", "b.png"):
         add_page(batch, name, spec=card)
     add_page(batch, "short.png", spec={"f01": SURE, "f02": SURE})
-    assert why(batch) == {("short.png", "f02"): ("fields missing",)}
+    assert why(batch) == {("short.png", "f02"): ("fields missing", "missing: f03 (2 boxes)")}
     assert "may have been missed" in ReviewQueue(batch).items()[0].words
 
 
@@ -136,7 +138,7 @@ def test_a_value_less_sure_than_the_threshold_is_to_check_without_its_digits(bat
     assert field_row(batch, fid)["state"] == TO_CHECK  # ... but the value is 85.7 % sure
     assert why(batch) == {("a.png", "f01"): ("value unsure",)}
     checks = field_checks(batch.rows, "f.id = ?", (fid,), threshold=0.9)
-    assert checks[fid].why == ("value unsure",) and checks[fid].layout is None
+    assert checks[fid].why == ("value unsure",) and checks[fid].layout == ()
 
 
 def test_confirming_digits_until_the_rest_is_sure_enough_resolves_the_value(batch):
