@@ -16,9 +16,13 @@ checks it against its declared schema version before anything else reads it:
   box is four whole numbers), states are known states, confidences lie in 0..1,
   probabilities are 11 float32, every box a digit row names exists, and the
   fields a spot check drew exist.
-* **Images** (:func:`check_image`): a page image or a box crop is a PNG or a
-  WebP (:mod:`recognizer.batch.images`) whose header declares at most :data:`LIMITS` ``["image_pixels"]`` (an A3 page at
-  600 dpi is 70 million); it is checked before it is decoded.
+* **Images** (:func:`check_image`): a page image, a box crop or a field's
+  crop sheet is a PNG or a WebP (:mod:`recognizer.batch.images`) whose header
+  declares at most :data:`LIMITS` ``["image_pixels"]`` (an A3 page at 600 dpi
+  is 70 million), and a crop sheet exactly the size its boxes give it
+  (:func:`check_sheet`); it is checked before it is decoded. Crop sheets
+  belong to fields that exist, with a whole margin, and every digit without
+  a crop of its own has its field's sheet.
 
 Each check raises :class:`ValueError` with the reason in plain words; the
 batch turns it into a :class:`~recognizer.batch.store.BatchFileError` naming
@@ -41,8 +45,8 @@ from recognizer.digits.model import json_depth
 from recognizer.states import State
 
 __all__ = [
-    "LIMITS", "SETTING_NAMES", "check_image", "check_png", "check_rows", "check_tables", "expected_tables",
-    "holds_nothing", "image_size",
+    "LIMITS", "SETTING_NAMES", "check_image", "check_png", "check_sheet", "check_rows", "check_tables",
+    "expected_tables", "holds_nothing", "image_size",
     "load_json", "settings_values",
 ]
 
@@ -55,6 +59,7 @@ LIMITS: dict[str, int] = {
     "template_depth": 12,
     "image_pixels": 120_000_000,  # a page (the scans' default limit is lower; --max-pixels may raise it)
     "coordinate": 10_000_000,  # a box edge, in pixels
+    "crop_margin": 1_000,  # the margin round a box in a crop sheet, in pixels (0.8 mm is 32 at 1,000 dpi)
 }
 _PNG = b"\x89PNG\r\n\x1a\n"
 _STATES = tuple(s.value for s in State)
@@ -270,6 +275,25 @@ def check_rows(conn: sqlite3.Connection) -> None:
         _check_audits(conn)
     if "scale" in {r[1] for r in conn.execute("PRAGMA table_info(page_images)")}:
         _check_page_images(conn)
+    if "crop_sheets" in {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}:
+        _check_crop_sheets(conn)
+
+
+def _check_crop_sheets(conn: sqlite3.Connection) -> None:
+    """Crop sheets (schema version 6) belong to fields, with a whole margin and image bytes; every digit
+    without a crop of its own has its field's sheet. (Each sheet's size is checked against its boxes
+    from its header when it is read, :func:`check_sheet`.)"""
+    row = conn.execute(
+        "SELECT s.field_id FROM crop_sheets s LEFT JOIN fields f ON f.id = s.field_id WHERE f.id IS NULL "
+        "OR typeof(s.margin) != 'integer' OR s.margin NOT BETWEEN 1 AND ? OR typeof(s.image) != 'blob' "
+        "OR length(s.image) = 0 LIMIT 1", (LIMITS["crop_margin"],)).fetchone()
+    if row is not None:
+        raise ValueError(f"the crops of field {row[0]} are not what Inkcount stores there")
+    row = conn.execute(
+        "SELECT d.id FROM digits d LEFT JOIN crop_sheets s ON s.field_id = d.field_id "
+        "WHERE length(d.crop_png) = 0 AND s.field_id IS NULL LIMIT 1").fetchone()
+    if row is not None:
+        raise ValueError(f"digit {row[0]} has no crop: neither its own nor its field's")
 
 
 def _check_page_images(conn: sqlite3.Connection) -> None:
@@ -323,6 +347,16 @@ def check_image(data: Any) -> None:
     if width * height > LIMITS["image_pixels"]:
         raise ValueError(f"an image in the batch file declares {width} x {height} pixels, more than a page "
                          f"may have ({LIMITS['image_pixels']:,})")
+
+
+def check_sheet(data: Any, size: tuple[int, int]) -> None:
+    """A field's crop sheet is an image (:func:`check_image`) of exactly ``size`` (width, height), the
+    size its boxes and margin give it (:func:`recognizer.batch.images.sheet_size`), from its header."""
+    check_image(data)
+    width, height = image_size(data)
+    if (width, height) != tuple(size):
+        raise ValueError(f"the crops of a field are {width} x {height} pixels where its boxes make "
+                         f"{size[0]} x {size[1]}")
 
 
 #: The name of :func:`check_image` before batch files kept WebP images.

@@ -60,9 +60,10 @@ FORMAT_NAME = "inkcount-batch"
 #: ``PRAGMA application_id`` of a batch file: the bytes "Inkc".
 APPLICATION_ID = int.from_bytes(b"Inkc", "big")
 SQLITE_HEADER = b"SQLite format 3\x00"
-#: SQLite page size of a new batch file: the rows of box crops (about 2 KB each) fill 2 KB pages with
-#: less left over than SQLite's 4 KB default (measured with ``bench/bench_batch_size.py``: the file
-#: about a fifth smaller at 2 KB; 1 KB saves 4 % more).
+#: SQLite page size of a new batch file: the crop sheets (about 6 KB a field) and the small rows of
+#: the other tables leave less over in 2 KB pages than in SQLite's 4 KB default (measured with
+#: ``bench/bench_batch_size.py``, format 6: 131.6 KB a page at 2 KB, 138.2 at 4 KB, 128.6 at 1 KB;
+#: format 5, a crop a row of about 2 KB: the file about a fifth smaller at 2 KB than at 4 KB).
 PAGE_SIZE = 2048
 
 

@@ -37,7 +37,7 @@ __all__ = [
     "page_dpi",
     "PageSource",
     "page_source",
-    "page_crops",
+    "page_digits",
     "find_field_id",
     "field_place",
     "count_fields",
@@ -119,14 +119,15 @@ def page_source(batch: Batch, page_id: int) -> PageSource:
     return PageSource(*rows[0])
 
 
-def page_crops(batch: Batch, page_id: int) -> dict[tuple[int, int, int, int], bytes]:
-    """The stored crop (image bytes) of every box of a page, by the box's edges (x0, y0, x1, y1)."""
-    crops = {}
-    for boxes, box, crop in batch.rows("SELECT f.boxes, d.box, d.crop_png FROM digits d JOIN fields f "
-                                       "ON f.id = d.field_id WHERE f.page_id = ?", (page_id,)):
+def page_digits(batch: Batch, page_id: int) -> dict[tuple[int, int, int, int], int]:
+    """The digit (its id, for :meth:`Batch.digit_crop`) of every box of a page, by the box's edges
+    (x0, y0, x1, y1)."""
+    digits = {}
+    for boxes, box, digit_id in batch.rows("SELECT f.boxes, d.box, d.id FROM digits d JOIN fields f "
+                                           "ON f.id = d.field_id WHERE f.page_id = ?", (page_id,)):
         edges = json.loads(boxes)[box]
-        crops[tuple(int(v) for v in edges)] = crop
-    return crops
+        digits[tuple(int(v) for v in edges)] = digit_id
+    return digits
 
 
 

@@ -19,8 +19,9 @@ from pathlib import Path
 
 import numpy as np
 
-from recognizer.batch.queries import PageSource, page_crops, page_dpi, page_source
-from recognizer.batch.store import Batch, PageImage, decode_png
+from recognizer.batch.images import crop_margin
+from recognizer.batch.queries import PageSource, page_digits, page_dpi, page_source
+from recognizer.batch.store import Batch, PageImage
 from recognizer.digits.model import NOT_A_DIGIT
 from recognizer.digits.retrain import LabelledCells
 from recognizer.forms.registration import Registrar, match_templates
@@ -28,7 +29,7 @@ from recognizer.forms.template import Template
 from recognizer.page.boxes import Box, find_fields, warp_like
 from recognizer.page.cells import Cell, cut_cell
 from recognizer.page.dropout import split_dropout
-from recognizer.scans.files import DEFAULT_PDF_DPI, Page, ScanProblem, load_page
+from recognizer.scans.files import DEFAULT_PDF_DPI, Page, ScanProblem, load_page, printable_name
 
 __all__ = [
     "SampleRef", "StoredPages", "labelled_samples", "batch_cells", "gather_cells", "find_original", "reader_page",
@@ -75,7 +76,7 @@ def labelled_samples(
     """
     rows = batch.rows(
         """
-        SELECT d.id, d.crop_png, d.value, d.state, d.box, f.name, f.boxes, f.page_id, p.page, p.dpi, fl.path,
+        SELECT d.id, d.value, d.state, d.box, f.name, f.boxes, f.page_id, p.page, p.dpi, fl.path,
                (SELECT a.reviewer FROM actions a WHERE a.field_id = f.id AND a.undone_by IS NULL
                 ORDER BY a.id DESC LIMIT 1) AS reviewer
         FROM digits d JOIN fields f ON f.id = d.field_id JOIN pages p ON p.id = f.page_id
@@ -84,7 +85,7 @@ def labelled_samples(
         ORDER BY d.id
         """
     )
-    crops = [decode_png(r["crop_png"], batch.path) for r in rows]
+    crops = [batch.digit_crop(r["id"]) for r in rows]
     pages = StoredPages(batch)
     cells = []
     for r, crop in zip(rows, crops):
@@ -105,11 +106,11 @@ def _same_crop(cut: np.ndarray, stored: np.ndarray) -> bool:
 
 @dataclass
 class _Page:
-    """What :class:`StoredPages` keeps of one page: its dpi, its boxes' stored crops, and the full page
+    """What :class:`StoredPages` keeps of one page: its dpi, its boxes' digits, and the full page
     once it was needed (``False``: not looked for yet; None: not to be had)."""
 
     dpi: float | None
-    crops: dict[tuple[int, int, int, int], bytes]
+    digits: dict[tuple[int, int, int, int], int]
     full: np.ndarray | None | bool = False
 
 
@@ -120,10 +121,13 @@ class StoredPages:
     batch, re-reading with another model in :mod:`recognizer.review.reread`).
     A box is cut, in this order of preference, from
 
-    1. its stored crop: the box and the margin the reader cut around it, kept
-       exactly (:mod:`recognizer.batch.images`). The cell depends on the crop
-       alone, so this is the reader's model input, bit for bit, without the
-       scan; used when the crop has the margin the cutter uses today;
+    1. its stored crop (:meth:`Batch.digit_crop`): the box and the margin the
+       reader cut around it, kept exactly (older batches) or lean, plain only
+       where that leaves the cell as it was, which was checked when it was
+       stored (:func:`recognizer.batch.images.lean_crop`). The cell depends on
+       the crop alone, so this is the reader's model input, bit for bit,
+       without the scan; used when the crop has the margin the cutter uses
+       today;
     2. the original scan, when it is still where it was read (its absolute
        location, else the path as given, else that path beside the batch) and
        its size and sha256 are the ones recorded: the page is loaded and
@@ -143,6 +147,9 @@ class StoredPages:
         self.originals = originals
         #: Scan files needed but not found or changed: path as given -> the reason.
         self.missing: dict[str, str] = {}
+        #: Scan files found and used somewhere other than their recorded location: sha256 -> (path as
+        #: given, where the file is now). (Writing the new place into the batch is the caller's choice.)
+        self.moved: dict[str, tuple[str, Path]] = {}
         #: How many cells came from each source: "crop", "original", "page".
         self.sources: dict[str, int] = {"crop": 0, "original": 0, "page": 0}
         self._pages: OrderedDict[int, _Page] = OrderedDict()
@@ -153,9 +160,9 @@ class StoredPages:
         if page.dpi is None:
             return None
         box = Box(*(int(v) for v in edges))
-        data = page.crops.get((box.x0, box.y0, box.x1, box.y1))
-        if data is not None:
-            cell = _from_crop(decode_png(data, self.batch.path), box, page.dpi)
+        digit_id = page.digits.get((box.x0, box.y0, box.x1, box.y1))
+        if digit_id is not None:
+            cell = _from_crop(self.batch.digit_crop(digit_id), box, page.dpi)
             if cell is not None:
                 self.sources["crop"] += 1
                 return cell
@@ -169,7 +176,7 @@ class StoredPages:
         if page_id in self._pages:
             self._pages.move_to_end(page_id)
         else:
-            self._pages[page_id] = _Page(page_dpi(self.batch, page_id), page_crops(self.batch, page_id))
+            self._pages[page_id] = _Page(page_dpi(self.batch, page_id), page_digits(self.batch, page_id))
             while len(self._pages) > self.keep:
                 self._pages.popitem(last=False)
         return self._pages[page_id]
@@ -207,6 +214,9 @@ class StoredPages:
         if image is None or image.shape != (stored.height, stored.width):
             self.missing[source.path] = "it no longer reads as it did"
             return None
+        now = os.path.abspath(path)
+        if source.location != printable_name(now):
+            self.moved[source.sha256] = (source.path, Path(now))
         return image
 
 
@@ -253,10 +263,9 @@ def reader_page(page: Page, template: Template | None) -> np.ndarray | None:
 def _from_crop(crop: np.ndarray, box: Box, dpi: float) -> Cell | None:
     """The cell of ``box`` cut from its stored crop, when the crop has the margin the cutter uses
     (then the cell is the reader's exactly); None otherwise."""
-    mx, my = crop.shape[1] - box.width, crop.shape[0] - box.height
-    if mx != my or mx < 2 or mx % 2:
+    m = crop_margin(crop.shape, box)
+    if m is None:
         return None
-    m = mx // 2
     cell = cut_cell(crop, Box(m, m, m + box.width, m + box.height), dpi=dpi)
     return cell if cell.crop.shape == crop.shape else None
 

@@ -53,6 +53,15 @@ likewise). ``files.location`` is the absolute path of the scan when it was
 read (``path`` stays as it was given), to find the original again for
 cutting a box afresh at full resolution; NULL in older files (``path`` is
 tried).
+Version 6 keeps the box crops of a field together: ``crop_sheets(field_id,
+margin, image)`` holds one image per field, the crops of its boxes side by
+side in the order of the boxes (each the box and ``margin`` pixels round it,
+all at the top; :func:`recognizer.batch.images.sheet_layout`), as PNG or
+lossless WebP. A digit whose ``crop_png`` is empty (zero bytes) has its crop
+there; a digit with bytes of its own keeps them (every crop of an older file,
+and the crops of a field that are not all the reader's cut). The crops are
+lean (:func:`recognizer.batch.images.lean_crop`): plain paper and black lines
+away from the ink, the same cell to the bit.
 The meaning of the states and of ``value``/``whole``/``resolution`` is in
 :mod:`recognizer.states` and :mod:`recognizer.review.actions`.
 """
@@ -224,9 +233,22 @@ def _schema_v5(conn: sqlite3.Connection) -> None:
                 conn.execute(f"ALTER TABLE {table} ADD COLUMN {column}")
 
 
+def _schema_v6(conn: sqlite3.Connection) -> None:
+    """Version 6: the crops of each field's boxes in one image (a digit's own ``crop_png`` left empty)."""
+    conn.execute(
+        """
+        CREATE TABLE IF NOT EXISTS crop_sheets (
+            field_id INTEGER PRIMARY KEY REFERENCES fields(id),
+            margin INTEGER NOT NULL,
+            image BLOB NOT NULL
+        )
+        """
+    )
+
+
 #: Schema steps in order: ``MIGRATIONS[i]`` brings a file from version i to i + 1.
 MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_schema_v1, _schema_v2, _schema_v3, _schema_v4,
-                                                       _schema_v5]
+                                                       _schema_v5, _schema_v6]
 #: Schema version written by this program.
 SCHEMA_VERSION = len(MIGRATIONS)
 

@@ -37,10 +37,13 @@ Storage
   grey) is kept for the eye at a display resolution (150 dpi WebP, or whole
   as a 1-bit PNG when the page is bitonal), with its scale; :meth:`Batch.page_image`
   gives it back on the full-resolution grid the box coordinates refer to.
-  The crop of every box is kept exactly, at full resolution; re-reading with
-  another model and learning cut the cells again from those crops
-  (:class:`recognizer.batch.samples.StoredPages`), so nothing depends on the
-  original scan files staying where they were. Each file's content hash,
+  The crop of every box is kept at full resolution, lean (plain paper and
+  black lines away from the ink, as scanned near it) and so that the cell cut
+  from it is the reader's to the bit; a field's crops are kept side by side
+  in one image, its crop sheet (:meth:`Batch.digit_crop` gives one back).
+  Re-reading with another model and learning cut the cells again from those
+  crops (:class:`recognizer.batch.samples.StoredPages`), so nothing depends
+  on the original scan files staying where they were. Each file's content hash,
   size, path and absolute location are kept, so that a box can also be cut
   afresh from the original scan while it is still there.
 * **Probabilities**: the 11 class probabilities of each written box as 44
@@ -68,7 +71,9 @@ from typing import Any
 import numpy as np
 
 from recognizer.batch import checks, schema
-from recognizer.batch.images import decode_image, encode_crop, encode_page, encode_png, full_size, is_lossless
+from recognizer.batch.images import (
+    PageImage, SheetCache, StoredImages, decode_png, encode_png, full_size, is_lossless, stored_images,
+)
 from recognizer.batch.opening import (
     APPLICATION_ID, FORMAT_NAME, BatchFileError, BatchInUseError, build_in_place, check_header, check_ours, connect,
     leftover, lock_for_writing, worth_a_look,
@@ -169,42 +174,8 @@ _SETTING_NAMES = frozenset(f.name for f in dataclasses.fields(BatchSettings))
 # --------------------------------------------------------------------------- helpers
 
 
-def decode_png(data: bytes, path: str | os.PathLike | None = None) -> np.ndarray:
-    """(M, N) uint8 image back from stored image bytes (PNG or WebP, :mod:`recognizer.batch.images`).
-
-    The declared size is checked before it is decoded
-    (:func:`recognizer.batch.checks.check_image`). A damaged or oversized image
-    raises ValueError, or :class:`BatchFileError` naming ``path`` when given.
-    """
-    try:
-        image = decode_image(data)
-    except ValueError as exc:
-        if path is None:
-            raise
-        raise BatchFileError(path, str(exc)) from None
-    return image
-
-
 #: A file's path as the batch keeps it (the one rule, :func:`recognizer.scans.files.printable_name`).
 stored_path = printable_name
-
-
-@dataclass(frozen=True)
-class PageImage:
-    """A page image as the batch keeps it: ``image`` at ``scale`` stored pixels per pixel of the page
-    as read, whose full size is ``width`` x ``height`` (the grid of the box coordinates); ``lossless``:
-    the image is exact (a page of an older batch at scale 1, or a bitonal page)."""
-
-    image: np.ndarray
-    scale: float
-    width: int
-    height: int
-    lossless: bool
-
-    @property
-    def exact(self) -> bool:
-        """The stored image is the page as read, pixel for pixel (boxes can be cut from it)."""
-        return self.lossless and self.image.shape == (self.height, self.width)
 
 
 # --------------------------------------------------------------------------- the batch
@@ -235,6 +206,7 @@ class Batch:
         self._lock = lock
         self._guard = threading.RLock()
         self._observers: list[Callable[[Change], None]] = []
+        self._sheets = SheetCache()
 
     # ---- opening and closing
 
@@ -423,11 +395,31 @@ class Batch:
         return PageImage(image, float(scale), int(width), int(height), is_lossless(data))
 
     def digit_crop(self, digit_id: int) -> np.ndarray:
-        """The crop of one box as read, (h, w) uint8, 0 = ink."""
-        rows = self.rows("SELECT crop_png FROM digits WHERE id = ?", (digit_id,))
+        """The crop of one box as stored, (h, w) uint8, 0 = ink: the box and the reader's margin round
+        it (lean: :func:`recognizer.batch.images.lean_crop`), from the digit's own bytes or its field's
+        crop sheet."""
+        rows = self.rows("SELECT field_id, box, crop_png FROM digits WHERE id = ?", (digit_id,))
         if not rows:
             raise KeyError(f"no digit {digit_id}")
-        return decode_png(rows[0][0], self.path)
+        field_id, box, data = rows[0]
+        if len(data):
+            return decode_png(data, self.path)
+        crops = self._sheet_crops(field_id)
+        if not 0 <= box < len(crops):
+            raise BatchFileError(self.path, f"digit {digit_id} names a box its field's crops do not have")
+        return crops[box].copy()
+
+    def _sheet_crops(self, field_id: int) -> list[np.ndarray]:
+        """The crops of a field's boxes cut out of its crop sheet (:class:`SheetCache`: the last few kept;
+        copy one before handing it out)."""
+        rows = self.rows("SELECT s.margin, s.image, f.boxes FROM crop_sheets s JOIN fields f ON f.id = s.field_id "
+                         "WHERE s.field_id = ?", (field_id,))
+        if not rows:
+            raise BatchFileError(self.path, f"the crops of field {field_id} are missing")
+        try:
+            return self._sheets.crops(field_id, *rows[0])
+        except ValueError as exc:
+            raise BatchFileError(self.path, str(exc)) from None
 
     def digit_probs(self, digit_id: int) -> np.ndarray | None:
         """The 11 class probabilities of one box, float32, or None for an empty box."""
@@ -461,13 +453,21 @@ class Batch:
             )
             return int(cur.lastrowid)
 
+    def set_location(self, sha256: str, location: str | os.PathLike) -> None:
+        """Record where the scan file of content ``sha256`` is now (its absolute path), after it was found
+        somewhere other than where it was read; its path as given stays as it was."""
+        text = stored_path(os.path.abspath(os.fspath(location)))
+        with self.transaction() as conn:
+            conn.execute("UPDATE files SET location = ? WHERE sha256 = ?", (text, sha256))
+
     def add_result(self, file_id: int, result: PageRead | ScanProblem, *, model_version: str | None) -> int:
         """Store one page read (or one problem) in one transaction; return the page id."""
+        images = None if isinstance(result, ScanProblem) else stored_images(result)  # (before taking the lock)
         with self.transaction() as conn:
             if isinstance(result, ScanProblem):
                 page_id = _insert_problem(conn, file_id, result)
             else:
-                page_id = _insert_page(conn, file_id, result, model_version)
+                page_id = _insert_page(conn, file_id, result, model_version, images)
                 refresh_states(conn, page_ids=[page_id])
             relabelled = refresh_layout(conn)
         self.notify(Change("page", page_ids=(page_id, *(i for i in relabelled if i != page_id))))
@@ -535,7 +535,8 @@ def _insert_problem(conn: sqlite3.Connection, file_id: int, problem: ScanProblem
     return int(cur.lastrowid)
 
 
-def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_version: str | None) -> int:
+def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_version: str | None,
+                 images: StoredImages | None = None) -> int:
     layout = page.layout()
     cur = conn.execute(
         "INSERT INTO pages (file_id, page, dpi, skew_deg, problem, warnings, layout, read_at, template, "
@@ -547,12 +548,13 @@ def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_v
         ),
     )
     page_id = int(cur.lastrowid)
-    if page.image is not None:
-        data, scale = encode_page(page.image, page.dpi)
+    images = images or stored_images(page)
+    if images.page is not None:
+        data, scale = images.page
         height, width = page.image.shape[:2]
         conn.execute("INSERT INTO page_images (page_id, png, scale, width, height) VALUES (?, ?, ?, ?, ?)",
                      (page_id, data, scale, width, height))
-    for position, f in enumerate(page.fields):
+    for position, (f, crops) in enumerate(zip(page.fields, images.fields)):
         boxes = json.dumps([[int(b.x0), int(b.y0), int(b.x1), int(b.y1)] for b in f.boxes])
         cur = conn.execute(
             "INSERT INTO fields (page_id, position, name, boxes, read_value, gap, doubts, value, state, "
@@ -562,6 +564,9 @@ def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_v
              json.dumps(f.rule_problems), f.typed),
         )
         field_id = int(cur.lastrowid)
+        if crops.sheet is not None:
+            conn.execute("INSERT INTO crop_sheets (field_id, margin, image) VALUES (?, ?, ?)",
+                         (field_id, crops.margin, crops.sheet))
         conn.executemany(
             "INSERT INTO digits (field_id, box, blank, prediction, confidence, model_version, value, state, "
             "probs, crop_png) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
@@ -569,9 +574,9 @@ def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_v
                 (
                     field_id, d.box, int(d.blank), d.text, float(d.confidence),
                     None if d.blank else model_version, d.text, State.READ.value,
-                    None if d.probs is None else np.asarray(d.probs, "<f4").tobytes(), encode_crop(d.crop),
+                    None if d.probs is None else np.asarray(d.probs, "<f4").tobytes(), crop,
                 )
-                for d in f.digits
+                for d, crop in zip(f.digits, crops.own)
             ],
         )
     return page_id

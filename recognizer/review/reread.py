@@ -26,6 +26,8 @@ class RereadSummary:
     ``missing`` names the scan files (path as given -> why: "not found", "changed since it was
     read", ...) that were needed to cut boxes again and could not be used; ``kept`` counts the boxes
     that therefore kept their stored reading (their pages are otherwise read again as usual).
+    ``moved`` names the scan files used from another place than the one recorded (path as given ->
+    where they are now); the batch keeps the new place as their location.
     """
 
     digits: int = 0
@@ -33,6 +35,7 @@ class RereadSummary:
     threshold: float | None = None
     missing: dict[str, str] = field(default_factory=dict)
     kept: int = 0
+    moved: dict[str, str] = field(default_factory=dict)
 
     def missing_lines(self) -> list[str]:
         """One line per missing scan file, for the command line and the window."""
@@ -48,7 +51,9 @@ def reread_unchecked(batch: Batch, model: DigitModel, *, model_path: str | None 
     The cells are cut again as the reader cut them (:class:`recognizer.batch.samples.StoredPages`:
     from the stored crops, else from the original scan); a box that cannot be
     cut again keeps its stored reading, and the scan files that were needed but
-    not found (or changed) are named in the summary's ``missing``. Each box re-read
+    not found (or changed) are named in the summary's ``missing``; a scan file
+    found (its content unchanged) somewhere other than its recorded location
+    gets its new place recorded (``files.location``; ``moved`` in the summary). Each box re-read
     records ``model.version``; the batch's model becomes ``model`` (and
     ``model_path`` if given), and a threshold that follows a target residual
     error is recomputed from the new model's calibration. One transaction per
@@ -69,6 +74,9 @@ def reread_unchecked(batch: Batch, model: DigitModel, *, model_path: str | None 
     for page_id in pages_with_open_digits(batch):
         _reread_page(batch, model, pages, page_id, summary)
     summary.missing = dict(pages.missing)
+    for sha256, (given, now) in pages.moved.items():
+        batch.set_location(sha256, now)
+        summary.moved[given] = str(now)
     with batch.transaction() as conn:
         refresh_states(conn)
     batch.notify(Change("flags"))

@@ -8,9 +8,11 @@ wrong shape, a page image that is a decompression bomb; and scan names that are 
 
 from __future__ import annotations
 
+import json
 import os
 import sqlite3
 import tracemalloc
+from dataclasses import replace
 from pathlib import Path
 
 import pytest
@@ -18,11 +20,12 @@ import pytest
 import recognizer.ingest as ingest_module
 from recognizer.batch import checks
 from recognizer.batch.queries import stored_files
-from recognizer.batch.samples import labelled_samples
+from recognizer.batch.samples import StoredPages, labelled_samples
 from recognizer.batch.store import Batch, BatchFileError, BatchSettings
 from recognizer.ingest import ingest_scans
 from recognizer.review import confirm, set_field
-from tests.support.batches import FakeModel, add_page, fake_reader, new_batch
+from recognizer.page.cells import cut_cell
+from tests.support.batches import BOX_H, BOX_W, CARD, DPI, FakeModel, add_page, fake_reader, make_page, new_batch
 from tests.support.cli import run
 from tests.support.hostile import png_bomb
 
@@ -161,3 +164,65 @@ def test_a_scan_name_that_is_not_utf8_is_stored_and_shown(tmp_path: Path, monkey
     assert "2 file(s)" in capsys.readouterr().out
     with Batch.open(path, read_only=True) as batch:
         assert batch.integrity_check() == []
+
+
+# --------------------------------------------------------------------------- crop sheets (format 6)
+
+
+@pytest.fixture
+def sheeted(tmp_path: Path) -> Path:
+    """A sound batch whose crops are the reader's cut (the box with its margin), so they are kept on
+    one sheet a field."""
+    path = tmp_path / "hostile.inkcount"
+    page = make_page("a.png", 1, CARD)
+    page.fields = [replace(f, digits=[replace(d, crop=cut_cell(page.image, box, dpi=DPI).crop)
+                                      for d, box in zip(f.digits, f.boxes)]) for f in page.fields]
+    with new_batch(path) as batch:
+        batch.add_result(batch.add_file("a.png", "sha-a", 1), page, model_version="fake-1")
+        assert batch.rows("SELECT COUNT(*) FROM crop_sheets")[0][0] == len(CARD)
+        assert batch.rows("SELECT COUNT(*) FROM digits WHERE length(crop_png) > 0")[0][0] == 0
+        for digit_id, field, box in batch.rows("SELECT d.id, f.position, d.box FROM digits d JOIN fields f "
+                                               "ON f.id = d.field_id"):
+            crop = page.fields[field].digits[box].crop
+            assert batch.digit_crop(digit_id).shape == crop.shape
+    return path
+
+
+@pytest.mark.parametrize(("sql", "message"), [
+    ("DELETE FROM crop_sheets WHERE field_id = 2", "digit 4 has no crop: neither its own nor its field's"),
+    ("UPDATE crop_sheets SET margin = 0 WHERE field_id = 2", "the crops of field 2 are not what Inkcount stores"),
+    ("UPDATE crop_sheets SET margin = 'wide' WHERE field_id = 2", "the crops of field 2 are not what"),
+    ("UPDATE crop_sheets SET image = 'text' WHERE field_id = 2", "the crops of field 2 are not what"),
+    ("INSERT INTO crop_sheets (field_id, margin, image) VALUES (99, 4, x'00')", "the crops of field 99 are not"),
+], ids=["no-sheet", "margin-0", "margin-text", "image-text", "no-such-field"])
+def test_crop_sheets_of_the_wrong_kind(sheeted: Path, sql: str, message: str) -> None:
+    _alter(sheeted, sql)
+    _refused(sheeted, message)
+
+
+def test_a_crop_sheet_not_the_size_of_its_boxes_or_a_bomb_is_refused_before_decoding(sheeted: Path) -> None:
+    with Batch.open(sheeted, read_only=True) as batch:
+        digit = batch.rows("SELECT id FROM digits WHERE field_id = 2 ORDER BY box")[0][0]
+        good = batch.digit_crop(digit)
+    _alter(sheeted, "UPDATE crop_sheets SET image = ? WHERE field_id = 2", params=(png_bomb(12_000, 12_000),))
+    tracemalloc.start()
+    try:
+        with Batch.open(sheeted) as batch:
+            with pytest.raises(BatchFileError, match="declares 12000 x 12000 pixels") as info:
+                batch.digit_crop(digit)
+            assert "hostile.inkcount" in str(info.value)
+            with pytest.raises(BatchFileError, match="declares 12000 x 12000 pixels"):
+                StoredPages(batch).cell(1, json.loads(batch.rows("SELECT boxes FROM fields WHERE id = 2")[0][0])[0])
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert peak < 50_000_000
+    _alter(sheeted, "UPDATE crop_sheets SET image = ? WHERE field_id = 2", params=(png_bomb(40, 30),))
+    with Batch.open(sheeted, read_only=True) as batch:
+        with pytest.raises(BatchFileError, match="the crops of a field are 40 x 30 pixels where its boxes make"):
+            batch.digit_crop(digit)
+        assert good.shape == (BOX_H + 2 * round(0.8 * DPI / 25.4), BOX_W - 3 + 2 * round(0.8 * DPI / 25.4))
+    _alter(sheeted, "UPDATE fields SET boxes = '[[50, 10, 50, 90], [1, 2, 3, 4], [5, 6, 7, 8]]' WHERE id = 2")
+    with Batch.open(sheeted, read_only=True) as batch:
+        with pytest.raises(BatchFileError, match="the boxes of field 2 are not what Inkcount stores"):
+            batch.digit_crop(digit)

@@ -1,6 +1,7 @@
-"""The lean batch file (format 5): page images kept small, boxes still on their boxes, cells cut again
-exactly as the reader cut them (from the crops or the original scan), re-reading without the scan,
-and a format-4 file upgraded.
+"""The lean batch file (formats 5 and 6): page images kept small, boxes still on their boxes, box crops
+lean and kept a field to an image, cells cut again exactly as the reader cut them (from the crops or
+the original scan), re-reading without the scan (and a moved scan's new place recorded), and format-4
+and format-5 files upgraded.
 
 Pages are generated (our stroke-model writers on the benchmark's A4 page, :mod:`recognizer.synth`):
 geometry and exactness checks only.
@@ -19,13 +20,17 @@ import pytest
 from numpy.testing import assert_array_equal
 
 from recognizer.batch import checks
-from recognizer.batch.images import encode_crop, encode_page, encode_png
+from recognizer.batch import images
+from recognizer.batch.images import (
+    crop_margin, encode_crop, encode_page, encode_png, lean_crop, make_sheet, same_cell, sheet_crops, sheet_size,
+)
 from recognizer.batch.samples import StoredPages, labelled_samples
-from recognizer.batch.store import Batch
+from recognizer.batch.schema import SCHEMA_VERSION
+from recognizer.batch.store import Batch, BatchFileError
 from recognizer.digits.model import load_model
 from recognizer.ingest import ingest_scans
 from recognizer.page.boxes import Box
-from recognizer.page.cells import cut_cells
+from recognizer.page.cells import Cell, cut_cell, cut_cells
 from recognizer.reading.page import PageReader
 from recognizer.review import reread_unchecked, set_field
 from recognizer.scans.files import load_page
@@ -96,13 +101,18 @@ def _boxes(batch: Batch, page_id: int):
         "ORDER BY d.id", (page_id,))]
 
 
-def _reader_cells(model, scan: Path, batch: Batch, page_id: int) -> dict[int, np.ndarray | None]:
-    """The model input the reader makes of every box of the page: the page read again by the reader,
-    its boxes cut as it cuts them."""
+def _reader_cuts(model, scan: Path, batch: Batch, page_id: int) -> dict[int, Cell]:
+    """The cell the reader makes of every box of the page: the page read again by the reader, its
+    boxes cut as it cuts them."""
     read = PageReader(model, keep_image=True).read(load_page(scan, 1))
     boxes = _boxes(batch, page_id)
     cells = cut_cells(read.image, [Box(*edges) for _, edges in boxes], dpi=read.dpi)
-    return {digit_id: cell.mnist for (digit_id, _), cell in zip(boxes, cells)}
+    return {digit_id: cell for (digit_id, _), cell in zip(boxes, cells)}
+
+
+def _reader_cells(model, scan: Path, batch: Batch, page_id: int) -> dict[int, np.ndarray | None]:
+    """The model input the reader makes of every box of the page."""
+    return {digit_id: cell.mnist for digit_id, cell in _reader_cuts(model, scan, batch, page_id).items()}
 
 
 def test_the_page_image_is_kept_small_and_its_boxes_land_on_the_boxes(read_batch):
@@ -118,7 +128,7 @@ def test_the_page_image_is_kept_small_and_its_boxes_land_on_the_boxes(read_batch
         assert size < 60_000, size  # the full page was 1.8 MB as PNG
         margin = round(0.8 * DPI / 25.4)  # the crop's margin (recognizer.page.cells)
         for digit_id, (x0, y0, x1, y1) in _boxes(batch, page_id):
-            crop = batch.digit_crop(digit_id).astype(np.float32)  # the full page there, exactly
+            crop = batch.digit_crop(digit_id).astype(np.float32)  # the full page there (lean)
             # the page as the window draws it (scaled back): the box, its walls and ink where they were
             shown = full[y0 - margin:y1 + margin, x0 - margin:x1 + margin].astype(np.float32)
             assert np.corrcoef(shown.ravel(), crop.ravel())[0, 1] > 0.9
@@ -227,7 +237,8 @@ def test_a_format_4_batch_is_upgraded_and_opens(read_batch, tmp_path):
     with conn:
         conn.execute("UPDATE page_images SET png = ?", (encode_png(full),))
         conn.execute("UPDATE digits SET crop_png = ?", (encode_png(np.full((5, 5), 255, np.uint8)),))
-    for sql in ("ALTER TABLE page_images DROP COLUMN scale", "ALTER TABLE page_images DROP COLUMN width",
+    for sql in ("DROP TABLE crop_sheets",
+                "ALTER TABLE page_images DROP COLUMN scale", "ALTER TABLE page_images DROP COLUMN width",
                 "ALTER TABLE page_images DROP COLUMN height", "ALTER TABLE files DROP COLUMN location",
                 "PRAGMA user_version = 4"):
         conn.execute(sql)
@@ -236,7 +247,7 @@ def test_a_format_4_batch_is_upgraded_and_opens(read_batch, tmp_path):
     conn.close()
     assert tables == checks.expected_tables(4)
     with Batch.open(path) as batch:
-        assert batch.rows("PRAGMA user_version")[0][0] == 5
+        assert batch.rows("PRAGMA user_version")[0][0] == SCHEMA_VERSION
         stored = batch.stored_page(page_id)
         assert stored.scale == 1.0 and stored.exact
         assert_array_equal(batch.page_image(page_id), full)
@@ -246,3 +257,147 @@ def test_a_format_4_batch_is_upgraded_and_opens(read_batch, tmp_path):
         edges = _boxes(batch, page_id)[0][1]
         assert pages.cell(page_id, edges) is not None
         assert pages.sources["page"] == 1 and pages.missing
+
+
+# --------------------------------------------------------------------------- lean crops on sheets
+
+
+def test_crops_are_lean_one_sheet_a_field_and_give_the_readers_cells(read_batch, model):
+    path, scan = read_batch
+    with Batch.open(path, read_only=True) as batch:
+        page_id = _page_id(batch)
+        cuts = _reader_cuts(model, scan, batch, page_id)
+        fields = batch.rows("SELECT id FROM fields WHERE page_id = ?", (page_id,))
+        sheets = batch.rows("SELECT field_id, margin, length(image) FROM crop_sheets")
+        assert sorted(r[0] for r in sheets) == sorted(r[0] for r in fields)
+        assert batch.rows("SELECT COUNT(*) FROM digits WHERE length(crop_png) > 0")[0][0] == 0
+        dpi = batch.rows("SELECT dpi FROM pages WHERE id = ?", (page_id,))[0][0]
+        exact_bytes = 0
+        for digit_id, edges in _boxes(batch, page_id):
+            reader = cuts[digit_id]
+            stored = batch.digit_crop(digit_id)
+            box = Box(*edges)
+            # the crop the window shows is the lean crop of the reader's, pixel for pixel ...
+            assert_array_equal(stored, lean_crop(reader.crop, box, dpi))
+            # ... which looks as the scan did: a few grey levels at most away from the ink, none near it
+            assert stored.shape == reader.crop.shape
+            diff = np.abs(stored.astype(np.int16) - reader.crop)
+            assert diff.mean() < 4 and diff.max() <= 32
+            ink = reader.ink > 0
+            m = crop_margin(stored.shape, box)
+            assert not diff[m:m + box.height, m:m + box.width][ink].any()
+            # ... and gives the reader's cell to the bit
+            assert same_cell(cut_cell(stored, Box(m, m, m + box.width, m + box.height), dpi=dpi), reader)
+            exact_bytes += len(encode_crop(reader.crop))
+        assert sum(r[2] for r in sheets) < 0.7 * exact_bytes  # the point of it (bench: about half)
+
+
+def _noisy_crop(rng, *, written: bool, paper: float = 205.0, noise: float = 7.0) -> tuple[np.ndarray, Box]:
+    """A crop of a box on grey, noisy paper (not white: nothing is plain already), with dark noisy walls
+    in the margin and, if ``written``, a stroke; margin 9 (0.8 mm at 300 dpi)."""
+    h, w, m = 77, 63, 9
+    crop = np.full((h + 2 * m, w + 2 * m), paper, np.float32)
+    cv2.rectangle(crop, (m - 6, m - 6), (m + w + 5, m + h + 5), 40.0, 4)
+    if written:
+        cv2.ellipse(crop, (m + w // 2, m + h // 2), (14, 26), 10, 0, 300, 50.0, 5)
+    crop = cv2.GaussianBlur(crop, (0, 0), 0.8) + rng.normal(0, noise, crop.shape)
+    return np.clip(np.round(crop), 0, 255).astype(np.uint8), Box(m, m, m + w, m + h)
+
+
+@pytest.mark.parametrize("written", [True, False])
+def test_a_lean_crop_of_noisy_paper_keeps_the_cell_to_the_bit(written):
+    rng = np.random.default_rng(7)
+    for _ in range(5):
+        crop, box = _noisy_crop(rng, written=written)
+        lean = lean_crop(crop, box, 300.0)
+        assert lean.shape == crop.shape and lean.dtype == np.uint8
+        assert same_cell(cut_cell(lean, box, dpi=300.0), cut_cell(crop, box, dpi=300.0))
+        assert len(encode_crop(lean)) < len(encode_crop(crop))
+
+
+def test_a_crop_whose_cell_would_change_is_kept_as_it_is(monkeypatch):
+    crop, box = _noisy_crop(np.random.default_rng(8), written=True)
+    monkeypatch.setattr(images, "same_cell", lambda a, b: False)
+    assert_array_equal(lean_crop(crop, box, 300.0), crop)
+    # a crop without the cutter's margin (another cut) is kept as it is too
+    assert_array_equal(lean_crop(crop[3:, :], box, 300.0), crop[3:, :])
+
+
+def test_a_sheet_gives_back_each_crop_exactly_and_only_for_crops_of_one_margin():
+    rng = np.random.default_rng(9)
+    boxes = [Box(10, 20, 40, 60), Box(45, 18, 80, 61), Box(85, 22, 110, 58)]
+    crops = [rng.integers(0, 256, (b.height + 8, b.width + 8)).astype(np.uint8) for b in boxes]
+    sheet, margin = make_sheet(crops, boxes)
+    assert margin == 4 and sheet.shape[::-1] == sheet_size(boxes, 4) == (30 + 35 + 25 + 24, 43 + 8)
+    for got, crop in zip(sheet_crops(sheet, boxes, margin), crops):
+        assert_array_equal(got, crop)
+    assert make_sheet(crops[:2] + [crops[2][1:-1, 1:-1]], boxes) is None  # margins differ
+    assert make_sheet(crops[:2] + [crops[2][1:, :]], boxes) is None  # not the box with one margin
+    assert make_sheet([], []) is None
+
+
+def test_a_format_5_batch_is_upgraded_and_its_crops_read_as_before(read_batch, model, tmp_path):
+    path, scan = _copy(read_batch, tmp_path)
+    with Batch.open(path, read_only=True) as batch:
+        page_id = _page_id(batch)
+        crops = {digit_id: batch.digit_crop(digit_id) for digit_id, _ in _boxes(batch, page_id)}
+    conn = sqlite3.connect(path)  # as Inkcount wrote format 5: every crop its own image, no sheets
+    with conn:
+        conn.executemany("UPDATE digits SET crop_png = ? WHERE id = ?",
+                         [(encode_crop(crop), digit_id) for digit_id, crop in crops.items()])
+        conn.execute("DROP TABLE crop_sheets")
+        conn.execute("PRAGMA user_version = 5")
+    tables = {name: frozenset(r[1] for r in conn.execute(f"PRAGMA table_info({name})"))
+              for (name,) in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    conn.close()
+    assert tables == checks.expected_tables(5)
+    with pytest.raises(BatchFileError, match="format 5 needs upgrading"):
+        Batch.open(path, read_only=True)
+    with Batch.open(path) as batch:
+        assert batch.rows("PRAGMA user_version")[0][0] == SCHEMA_VERSION == 6
+        assert batch.rows("SELECT COUNT(*) FROM crop_sheets")[0][0] == 0
+        for digit_id, crop in crops.items():
+            assert_array_equal(batch.digit_crop(digit_id), crop)
+        expected = _reader_cells(model, scan, batch, page_id)
+        stored = StoredPages(batch)
+        for digit_id, edges in _boxes(batch, page_id):
+            cell = stored.cell(page_id, edges)
+            assert (cell.mnist is None) == (expected[digit_id] is None)
+            if cell.mnist is not None:
+                assert_array_equal(cell.mnist, expected[digit_id])
+        assert stored.sources["crop"] == len(crops)
+
+
+# --------------------------------------------------------------------------- a moved scan's new place
+
+
+def _place(path: Path, *, given: str, location: str | None) -> None:
+    conn = sqlite3.connect(path)
+    with conn:
+        conn.execute("UPDATE files SET path = ?, location = ?", (given, location))
+    conn.close()
+
+
+def test_a_reread_records_where_a_moved_scan_was_found(read_batch, tmp_path):
+    path, scan = _copy(read_batch, tmp_path)
+    _unusable_crops(path)  # the original scan is needed
+    _place(path, given=str(scan), location=str(tmp_path / "old place" / scan.name))
+    with Batch.open(path) as batch:
+        summary = reread_unchecked(batch, FakeModel("fake-2"))
+        assert summary.missing == {} and summary.digits > 0
+        assert summary.moved == {str(scan): str(scan.absolute())}
+        assert batch.rows("SELECT path, location FROM files WHERE sha256 IS NOT NULL")[0][:] == (
+            str(scan), str(scan.absolute()))
+        # found where it is recorded now: nothing more to record
+        assert reread_unchecked(batch, FakeModel("fake-3")).moved == {}
+
+
+def test_a_reread_records_a_scan_found_beside_the_batch(read_batch, tmp_path):
+    path, scan = _copy(read_batch, tmp_path)
+    _unusable_crops(path)
+    _place(path, given="scans/" + scan.name, location=None)  # as a format-4 batch kept it, given relative
+    with Batch.open(path) as batch:
+        summary = reread_unchecked(batch, FakeModel("fake-2"))
+        assert summary.missing == {} and summary.moved == {"scans/" + scan.name: str(scan.absolute())}
+        assert tuple(batch.rows("SELECT path, location FROM files WHERE sha256 IS NOT NULL")[0]) == (
+            "scans/" + scan.name, str(scan.absolute()))

@@ -70,9 +70,9 @@ def _batch_content(path: Path) -> list[tuple]:
         return conn.execute(
             """SELECT f.path, p.page, p.dpi, p.skew_deg, p.problem, p.warnings, p.layout, fl.name, fl.boxes,
                       fl.read_value, fl.value, fl.state, d.box, d.blank, d.prediction, d.confidence, d.probs,
-                      d.crop_png, d.state
+                      d.crop_png, cs.image, d.state
                FROM files f LEFT JOIN pages p ON p.file_id = f.id LEFT JOIN fields fl ON fl.page_id = p.id
-               LEFT JOIN digits d ON d.field_id = fl.id
+               LEFT JOIN digits d ON d.field_id = fl.id LEFT JOIN crop_sheets cs ON cs.field_id = fl.id
                ORDER BY f.path, p.page, fl.position, d.box""").fetchall()
 
 
@@ -109,6 +109,7 @@ def test_into_a_batch_on_a_cluster_as_in_one_process(scans, cluster, tmp_path, c
     assert main(["read", str(scans), "--batch", str(one), "--quiet"]) == 0
     assert main(["read", str(scans), "--batch", str(on_cluster), "--quiet", "--cluster", local.scheduler_address]) == 0
     assert _batch_content(one) == _batch_content(on_cluster)
+    assert all(row[-2] for row in _batch_content(one) if row[13] == 0)  # crops compared: every written box's sheet
     assert _stored_pages(on_cluster) == N_CARDS
 
 
