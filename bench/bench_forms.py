@@ -34,6 +34,9 @@ at 300 dpi, :func:`recognizer.forms.drafting.draft_from_scan`) and all five
 offered for every page, as an office with five forms would set them up; the
 table then also gives *right template*: pages registered to their own
 design's template (the registration score must tell the designs apart).
+The weigh ticket's black-and-white pages have lost their red boxes and
+register on the ticket's black print (:mod:`recognizer.forms.registration`,
+step 4); their cells are cut at the template's boxes.
 
 Seeded; a few minutes on two cores.  Not a test: prints figures.
 

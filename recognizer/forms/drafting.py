@@ -9,6 +9,12 @@ reference, so pages read with the template are aligned to it. The user then
 sets names, types and rules and removes what is not a digit field (in the
 template editor, or in the file: :mod:`recognizer.forms.template_file`).
 
+A form printed in a dropout colour is drafted from a colour or grey scan of
+it (a black-and-white scan has lost its boxes). Its reference then holds both
+the light print of the boxes and the black print (title, marks), and
+black-and-white pages of the form, which keep only the black print and the
+handwriting, register on that (:mod:`recognizer.forms.registration`, step 4).
+
 :func:`draft_from_scan` is the one way from a scan file to a draft, used by
 ``inkcount template new`` and by the window's template editor;
 :func:`draft_template` makes the draft from boxes already found.
