@@ -127,7 +127,7 @@ BEYOND_WORDS = ("Typed past the last box found: the value now has more digits th
 
 def _more(n: int) -> str:
     """The value label's note on digits typed past the last box."""
-    return "" if not n else f"{n} digit{'s' if n > 1 else ''} past the last box, "
+    return "" if not n else f"{n} past the last box, "
 
 
 def _typing_slots(view: FieldView) -> list:
@@ -325,6 +325,7 @@ class ReviewPanel(QFrame):
         self.tiles: list[BoxTile] = []
         self.value_label = QLabel("")
         self.value_label.setAlignment(Qt.AlignmentFlag.AlignCenter)
+        self.value_label.setWordWrap(True)  # the note on digits typed past the last box goes on a second line
         self.value_label.setAccessibleName("Value")
         layout.addWidget(self.value_label)
         keys = QLabel(KEY_HELP)
