@@ -57,6 +57,19 @@ def _centres(boxes) -> np.ndarray:
     return np.array([((b[0] + b[2]) / 2, (b[1] + b[3]) / 2) for b in boxes])
 
 
+def _box_errors(reg, blank, scan, shape: tuple[int, int], *, flipped: bool, dpi: float) -> list[float]:
+    """Distances, in px at 300 dpi, from each template box centre mapped onto the page to its true place."""
+    h, w = shape
+    errors: list[float] = []
+    for name, boxes in blank.boxes.items():
+        ref, truth = _centres(boxes), _centres(scan.boxes[name])
+        if flipped:
+            truth = np.array([w, h]) - truth
+        x, y = reg.to_page(ref[:, 0], ref[:, 1])
+        errors += list(np.hypot(x - truth[:, 0], y - truth[:, 1]) * 300 / dpi)
+    return errors
+
+
 def registration_figures(registrar: Registrar, rng: np.random.Generator) -> list[float]:
     layout = fg.orchard_card()
     blank = fg.render_form(layout, {}, dpi=300, rng=np.random.default_rng(0))  # the template's reference
@@ -78,13 +91,7 @@ def registration_figures(registrar: Registrar, rng: np.random.Generator) -> list
         if not reg:
             print(f"  page {i}: not registered: {reg.problem}")
             continue
-        h, w = image.shape
-        for name, boxes in blank.boxes.items():
-            ref, truth = _centres(boxes), _centres(scan.boxes[name])
-            if flipped:
-                truth = np.array([w, h]) - truth
-            x, y = reg.to_page(ref[:, 0], ref[:, 1])
-            errors += list(np.hypot(x - truth[:, 0], y - truth[:, 1]) * 300 / dpi)
+        errors += _box_errors(reg, blank, scan, image.shape, flipped=flipped, dpi=dpi)
     e = np.array(errors)
     print(f"registration error over 50 pages ({len(e)} box centres), px at 300 dpi: "
           f"median {np.median(e):.2f}, 95th percentile {np.percentile(e, 95):.2f}, worst {e.max():.2f}")
@@ -154,13 +161,7 @@ def dropout_figures(rng: np.random.Generator) -> None:
         if not reg:
             print(f"  ticket {i}: not registered: {reg.problem}")
             continue
-        h, w = image.shape
-        for name, boxes in blank.boxes.items():
-            ref, truth = _centres(boxes), _centres(scan.boxes[name])
-            if flipped:
-                truth = np.array([w, h]) - truth
-            x, y = reg.to_page(ref[:, 0], ref[:, 1])
-            errors += list(np.hypot(x - truth[:, 0], y - truth[:, 1]) * 300 / dpi)
+        errors += _box_errors(reg, blank, scan, image.shape, flipped=flipped, dpi=dpi)
     e = np.array(errors)
     print(f"black-and-white dropout tickets: registered {sum(s >= registrar.min_score for s in scores)}/30 "
           f"(scored on: {', '.join(sorted(layers))}); error px at 300 dpi: median {np.median(e):.2f}, "

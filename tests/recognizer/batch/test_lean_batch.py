@@ -162,18 +162,24 @@ def test_crops_are_kept_exactly_and_their_size_read_from_the_header():
     assert page[:4] == b"RIFF" and checks.image_size(page) == (250, 300)
 
 
+def _cells_are_the_readers(batch, page_id: int, expected: dict) -> StoredPages:
+    """Every box of the page cut again from the batch gives the reader's model input; the pages used."""
+    stored = StoredPages(batch)
+    for digit_id, edges in _boxes(batch, page_id):
+        cell = stored.cell(page_id, edges)
+        assert (cell.mnist is None) == (expected[digit_id] is None)
+        if cell.mnist is not None:
+            assert_array_equal(cell.mnist, expected[digit_id])
+    return stored
+
+
 def test_cells_cut_again_are_the_readers_model_input_from_the_crops_and_from_the_original(
         read_batch, model, tmp_path):
     path, scan = _copy(read_batch, tmp_path)
     with Batch.open(path, read_only=True) as batch:
         page_id = _page_id(batch)
         expected = _reader_cells(model, scan, batch, page_id)
-        stored = StoredPages(batch)
-        for digit_id, edges in _boxes(batch, page_id):
-            cell = stored.cell(page_id, edges)
-            assert (cell.mnist is None) == (expected[digit_id] is None)
-            if cell.mnist is not None:
-                assert_array_equal(cell.mnist, expected[digit_id])
+        stored = _cells_are_the_readers(batch, page_id, expected)
         assert stored.sources == {"crop": len(expected), "original": 0, "page": 0}
     _unusable_crops(path)
     with Batch.open(path) as batch:
@@ -359,12 +365,7 @@ def test_a_format_5_batch_is_upgraded_and_its_crops_read_as_before(read_batch, m
         for digit_id, crop in crops.items():
             assert_array_equal(batch.digit_crop(digit_id), crop)
         expected = _reader_cells(model, scan, batch, page_id)
-        stored = StoredPages(batch)
-        for digit_id, edges in _boxes(batch, page_id):
-            cell = stored.cell(page_id, edges)
-            assert (cell.mnist is None) == (expected[digit_id] is None)
-            if cell.mnist is not None:
-                assert_array_equal(cell.mnist, expected[digit_id])
+        stored = _cells_are_the_readers(batch, page_id, expected)
         assert stored.sources["crop"] == len(crops)
 
 
