@@ -149,7 +149,7 @@ class ValuesTable:
         page = "" if problem.page is None else str(problem.page)
         self.rows.append(_Row(str(problem.source), page, problem=problem.reason))
 
-    def _layout_reasons(self) -> list[dict[str, tuple[str, ...]]]:
+    def layout_reasons(self) -> list[dict[str, tuple[str, ...]]]:
         """Per row, the fields its layout puts in doubt (:func:`recognizer.states.layout_reasons`)."""
         tallies: dict[str, dict[str, list[int]]] = {}
         for i, row in enumerate(self.rows):
@@ -162,7 +162,7 @@ class ValuesTable:
     def to_check(self) -> list[list[str]]:
         """Per row, the fields a person must look at (:mod:`recognizer.states`), in the page's order."""
         out = []
-        for row, layout in zip(self.rows, self._layout_reasons()):
+        for row, layout in zip(self.rows, self.layout_reasons()):
             flagged = set(row.flagged) | set(layout)
             out.append([name for name in row.values if name in flagged])
         return out
@@ -170,7 +170,7 @@ class ValuesTable:
     def reason_counts(self) -> Counter:
         """How many fields to check each reason concerns (a field counts once per reason)."""
         counts: Counter = Counter()
-        for row, layout in zip(self.rows, self._layout_reasons()):
+        for row, layout in zip(self.rows, self.layout_reasons()):
             counts.update(row.why)
             counts.update(r for reasons in layout.values() for r in reasons)
         return counts
