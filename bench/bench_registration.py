@@ -57,12 +57,17 @@ def _centres(boxes) -> np.ndarray:
     return np.array([((b[0] + b[2]) / 2, (b[1] + b[3]) / 2) for b in boxes])
 
 
-def _register(registrar: Registrar, scan, *, dpi: float, flipped: bool):
-    """Register the scan (turned upside down if ``flipped``): the registration, its time, the page's shape."""
+def _measure(registrar: Registrar, blank, scan, *, dpi: float, flipped: bool, label: str):
+    """Register the scan (turned upside down if ``flipped``): the registration, its time, and the
+    box-centre errors (none, and a line printed, when it did not register)."""
     image = scan.image[::-1, ::-1].copy() if flipped else scan.image
     start = time.perf_counter()
     reg = registrar.register(image, dpi=dpi)
-    return reg, time.perf_counter() - start, image.shape
+    seconds = time.perf_counter() - start
+    if not reg:
+        print(f"  {label}: not registered: {reg.problem}")
+        return reg, seconds, []
+    return reg, seconds, _box_errors(reg, blank, scan, image.shape, flipped=flipped, dpi=dpi)
 
 
 def _box_errors(reg, blank, scan, shape: tuple[int, int], *, flipped: bool, dpi: float) -> list[float]:
@@ -91,13 +96,10 @@ def registration_figures(registrar: Registrar, rng: np.random.Generator) -> list
             noise=float(rng.uniform(0, 0.5)), blur=float(rng.uniform(0, 1.2)), lighting=float(rng.uniform(0, 0.3)),
             faint_lines=0.5 if i % 7 == 3 else 0.0, broken_lines=0.08 if i % 7 == 5 else 0.0)
         flipped = i % 5 == 4
-        reg, seconds, shape = _register(registrar, scan, dpi=dpi, flipped=flipped)
+        reg, seconds, found = _measure(registrar, blank, scan, dpi=dpi, flipped=flipped, label=f"page {i}")
         times.append(seconds)
         scores.append(reg.score)
-        if not reg:
-            print(f"  page {i}: not registered: {reg.problem}")
-            continue
-        errors += _box_errors(reg, blank, scan, shape, flipped=flipped, dpi=dpi)
+        errors += found
     e = np.array(errors)
     print(f"registration error over 50 pages ({len(e)} box centres), px at 300 dpi: "
           f"median {np.median(e):.2f}, 95th percentile {np.percentile(e, 95):.2f}, worst {e.max():.2f}")
@@ -158,14 +160,11 @@ def dropout_figures(rng: np.random.Generator) -> None:
                                blur=0.5, lighting=float(rng.uniform(0, 0.3)))
         scan = fg.bitonal_scan(scan, rng=rng, dpi=dpi, threshold=int(rng.integers(120, 171)))
         flipped = i % 5 == 4
-        reg, seconds, shape = _register(registrar, scan, dpi=dpi, flipped=flipped)
+        reg, seconds, found = _measure(registrar, blank, scan, dpi=dpi, flipped=flipped, label=f"ticket {i}")
         times.append(seconds)
         scores.append(reg.score)
         layers.add(reg.layer)
-        if not reg:
-            print(f"  ticket {i}: not registered: {reg.problem}")
-            continue
-        errors += _box_errors(reg, blank, scan, shape, flipped=flipped, dpi=dpi)
+        errors += found
     e = np.array(errors)
     print(f"black-and-white dropout tickets: registered {sum(s >= registrar.min_score for s in scores)}/30 "
           f"(scored on: {', '.join(sorted(layers))}); error px at 300 dpi: median {np.median(e):.2f}, "
