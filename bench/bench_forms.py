@@ -70,13 +70,12 @@ from recognizer.reading.page import PageRead  # noqa: E402
 from recognizer.reading.stream import ReadSettings, read_scans  # noqa: E402
 from recognizer.reading.values_csv import ValuesTable  # noqa: E402
 from recognizer.scans.files import ScanProblem  # noqa: E402
-from recognizer.states import DEFAULT_TARGET_ERROR  # noqa: E402
+from recognizer.states import DEFAULT_TARGET_ERROR, MISSING_REASON  # noqa: E402
 from recognizer.synth import forms as fg  # noqa: E402
 
 DESIGNS = ("orchard_card", "tally_sheet", "crate_return_slip", "weigh_ticket", "bin_register")
 CAPTURES = ("flatbed 300", "bitonal G4 200", "colour JPEG", "phone photo")
 MATCH = 0.04  # a found field lies within this share of the page's size of its truth field
-MISSING = "missing: "  # how a page names the fields of the batch's layout it lacks (recognizer.states)
 
 
 class HeldOutDigits:
@@ -217,7 +216,7 @@ def _score(results: list, truths: list[Truth], layout: fg.FormLayout, threshold:
     full_names = fg.fnames(layout)  # truth field -> its name on a page where every field is found
     for r, truth, flagged, layout_why in zip(results, truths, table.to_check(), table.layout_reasons()):
         named = {part.split(" (")[0] for reasons in layout_why.values() for reason in reasons
-                 if reason.startswith(MISSING) for part in reason[len(MISSING):].split(", ")}
+                 if reason.startswith(MISSING_REASON) for part in reason[len(MISSING_REASON):].split(", ")}
         tally.pages += 1
         ok = isinstance(r, PageRead) and bool(r)
         tally.read += ok

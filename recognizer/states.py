@@ -140,6 +140,9 @@ enough while none of its digits is under the threshold is a field-level
 reason (``value unsure``): confirming or correcting the field, or enough of
 its digits, resolves it. A page's state combines its fields' the same way
 (:func:`combine_states`).
+
+The module is longer than 600 lines: the rule, its reasons and their words are one decision and
+are kept in one place.
 """
 
 from __future__ import annotations
@@ -176,6 +179,7 @@ __all__ = [
     "common_layout",
     "layout_reasons",
     "missing_fields",
+    "MISSING_REASON",
     "reasons_in_words",
 ]
 
@@ -248,7 +252,8 @@ REASON_WORDS = {
 DIGIT_REASONS = frozenset({Reason.LOW_CONFIDENCE.value, Reason.NOT_A_DIGIT.value})
 
 _RULE = "rule "
-_MISSING = "missing: "
+#: How the reason naming the fields a page lacks begins (:func:`layout_reasons`).
+MISSING_REASON = "missing: "
 
 
 def digit_to_check(prediction: str, confidence: float, threshold: float | None) -> bool:
@@ -431,7 +436,7 @@ def check_field(
         page_warnings=warnings_touching(page_warnings, box_doubts=box_doubts, confidences=digits,
                                         threshold=threshold),
         odd_layout=Reason.LAYOUT_DIFFERS in layout, fields_missing=Reason.FIELDS_MISSING in layout,
-    ) + tuple(r for r in layout if r.startswith(_MISSING))
+    ) + tuple(r for r in layout if r.startswith(MISSING_REASON))
 
 
 def field_level(why: Iterable[str]) -> bool:
@@ -529,13 +534,13 @@ def layout_reasons(layout: str | None, common: str | None) -> dict[str, tuple[st
         differ = [i for i, (a, b) in enumerate(zip(page, batch)) if a != b]
         return {name: (Reason.LAYOUT_DIFFERS.value,) for name, _ in page[differ[0]:differ[-1] + 1]}
     first = next((i for i, (a, b) in enumerate(zip(page, batch)) if a != b), min(len(page), len(batch)))
-    missing = missing_fields(layout, common)
+    missing = _missing(page, batch)
     if first == len(page):
         reasons = {page[-1][0]: (Reason.FIELDS_MISSING.value,)}
     else:
         reasons = {name: (Reason.LAYOUT_DIFFERS.value,) for name, _ in page[first:]}
     for name, lost in missing.items():
-        reasons[name] = reasons.get(name, (Reason.LAYOUT_DIFFERS.value,)) + (_MISSING + lost,)
+        reasons[name] = reasons.get(name, (Reason.LAYOUT_DIFFERS.value,)) + (MISSING_REASON + lost,)
     return reasons
 
 
@@ -553,15 +558,17 @@ def missing_fields(layout: str, common: str) -> dict[str, str]:
     >>> missing_fields(page_layout([("f01", 8), ("f02", 3)]), a)
     {'f01': 'f01 (5 boxes)', 'f02': 'f03 (2 boxes)'}
     """
-    page = [int(n) for _, n in json.loads(layout)]
-    names = [(str(name), int(n)) for name, n in json.loads(common)]
-    batch = [n for _, n in names]
+    return _missing([(str(name), int(n)) for name, n in json.loads(layout)],
+                    [(str(name), int(n)) for name, n in json.loads(common)])
+
+
+def _missing(page_fields: list[tuple[str, int]], batch_fields: list[tuple[str, int]]) -> dict[str, str]:
+    """:func:`missing_fields` on the parsed layouts: lists of (field name, number of boxes)."""
+    if not page_fields:
+        return {}
+    page, batch = [n for _, n in page_fields], [n for _, n in batch_fields]
     rows, cols = len(page) + 1, len(batch) + 1
-    score = [[0] * cols for _ in range(rows)]
-    for i in range(1, rows):
-        score[i][0] = -i
-    for j in range(1, cols):
-        score[0][j] = -j
+    score = [[-(i + j) if not (i and j) else 0 for j in range(cols)] for i in range(rows)]  # gaps at the start
     for i in range(1, rows):
         for j in range(1, cols):
             pair = 2 if page[i - 1] == batch[j - 1] else -1
@@ -579,12 +586,9 @@ def missing_fields(layout: str, common: str) -> dict[str, str]:
         else:
             i -= 1
     out: dict[str, str] = {}
-    page_names = [str(name) for name, _ in json.loads(layout)]
     for i, lost in sorted(lost_before.items()):
-        if not page_names:
-            break
-        at = page_names[min(i, len(page_names) - 1)]
-        words = ", ".join(f"{names[k][0]} ({names[k][1]} box{'es' if names[k][1] != 1 else ''})" for k in lost)
+        at = page_fields[min(i, len(page_fields) - 1)][0]
+        words = ", ".join(f"{name} ({n} box{'es' if n != 1 else ''})" for name, n in (batch_fields[k] for k in lost))
         out[at] = f"{out[at]}, {words}" if at in out else words
     return out
 
@@ -596,5 +600,5 @@ def reasons_in_words(why: Iterable[str]) -> str:
     A reason without words of its own (none is made) shows as "flagged" rather than as its key.
     """
     return "; ".join(f"a rule is broken — {w[len(_RULE):]}" if w.startswith(_RULE)
-                     else f"not found on this page: {w[len(_MISSING):]}" if w.startswith(_MISSING)
+                     else f"not found on this page: {w[len(MISSING_REASON):]}" if w.startswith(MISSING_REASON)
                      else REASON_WORDS.get(w, "flagged") for w in why)

@@ -536,7 +536,7 @@ def _insert_problem(conn: sqlite3.Connection, file_id: int, problem: ScanProblem
 
 
 def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_version: str | None,
-                 images: StoredImages | None = None) -> int:
+                 images: StoredImages) -> int:
     layout = page.layout()
     cur = conn.execute(
         "INSERT INTO pages (file_id, page, dpi, skew_deg, problem, warnings, layout, read_at, template, "
@@ -548,7 +548,6 @@ def _insert_page(conn: sqlite3.Connection, file_id: int, page: PageRead, model_v
         ),
     )
     page_id = int(cur.lastrowid)
-    images = images or stored_images(page)
     if images.page is not None:
         data, scale = images.page
         height, width = page.image.shape[:2]

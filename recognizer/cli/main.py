@@ -37,7 +37,7 @@ from recognizer.digits.model import ModelFileError, load_model
 from recognizer.reading.cluster import ClusterError
 from recognizer.reading.stream import ReadSettings, read_scans
 from recognizer.reading.page import PageRead
-from recognizer.states import DEFAULT_TARGET_ERROR, REASON_WORDS, Reason
+from recognizer.states import DEFAULT_TARGET_ERROR, MISSING_REASON, REASON_WORDS, Reason
 from recognizer.review.strictness import set_target_error, set_threshold
 from recognizer.scans.files import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, ScanProblem, count_pages, list_scans
 from recognizer.forms.template_file import TemplateFileError, load_template
@@ -183,7 +183,7 @@ class _Tally:
 def _reason_words(reason: str) -> str:
     if reason in REASON_WORDS:
         return REASON_WORDS[Reason(reason)]
-    if reason.startswith("missing: "):
+    if reason.startswith(MISSING_REASON):
         return "a field the other pages have was not found on the page"
     return "a template rule is broken" if reason.startswith("rule ") else "flagged"
 

@@ -325,31 +325,15 @@ class Registrar:
         return matrix, inliers
 
     def _refine(self, ink: np.ndarray, matrix: np.ndarray, scale: float = 1.0) -> np.ndarray:
+        """ECC on the straight printed lines."""
         lines = _line_mask(self._on_reference(ink, matrix), self.reference.features_dpi)
-        warp = np.eye(2, 3, dtype=np.float32)
-        criteria = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 40, 1e-4)
-        try:
-            _, warp = cv2.findTransformECC(self._smooth_lines, _smooth(lines), warp, cv2.MOTION_AFFINE,
-                                           criteria, None, 1)
-        except cv2.error:
-            return matrix
-        refined = (_h(matrix) @ _h(warp.astype(np.float64)))[:2]
-        return refined if _plausible_affine(refined, matrix, scale) else matrix
+        return _ecc(self._smooth_lines, lines, matrix, scale, iterations=40)
 
     def _refine_on_print(self, ink: np.ndarray, matrix: np.ndarray, scale: float = 1.0) -> np.ndarray:
         """ECC on the dark print outside the fields (a page that does not show the box walls)."""
-        layer = self._print
-        assert layer is not None
+        assert self._print is not None
         page = self._print_mask(self._on_reference(ink, matrix))
-        warp = np.eye(2, 3, dtype=np.float32)
-        criteria = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 60, 1e-4)
-        try:
-            _, warp = cv2.findTransformECC(layer.smooth, _smooth(page), warp, cv2.MOTION_AFFINE, criteria,
-                                           None, 1)
-        except cv2.error:
-            return matrix
-        refined = (_h(matrix) @ _h(warp.astype(np.float64)))[:2]
-        return refined if _plausible_affine(refined, matrix, scale) else matrix
+        return _ecc(self._print.smooth, page, matrix, scale, iterations=60)
 
     def _on_reference(self, ink: np.ndarray, matrix: np.ndarray) -> np.ndarray:
         """The page's ink warped onto the reference by ``matrix`` (reference -> page, index coordinates)."""
@@ -403,6 +387,21 @@ class Registrar:
         to_features = np.diag([fd / self.reference.dpi, fd / self.reference.dpi, 1.0])
         to_page = np.diag([dpi / fd, dpi / fd, 1.0])
         return (to_page @ _h(edge) @ to_features)[:2]
+
+
+def _ecc(reference: np.ndarray, page: np.ndarray, matrix: np.ndarray, scale: float, *, iterations: int
+         ) -> np.ndarray:
+    """``matrix`` refined by ECC, aligning the page's 0/1 mask (warped onto the reference by
+    ``matrix``), smoothed, with the reference's smoothed one; ``matrix`` itself when ECC fails or
+    the refined map is implausible."""
+    warp = np.eye(2, 3, dtype=np.float32)
+    criteria = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, iterations, 1e-4)
+    try:
+        _, warp = cv2.findTransformECC(reference, _smooth(page), warp, cv2.MOTION_AFFINE, criteria, None, 1)
+    except cv2.error:
+        return matrix
+    refined = (_h(matrix) @ _h(warp.astype(np.float64)))[:2]
+    return refined if _plausible_affine(refined, matrix, scale) else matrix
 
 
 def _f1(ref: np.ndarray, ref_near: np.ndarray, page: np.ndarray, page_near: np.ndarray) -> float:

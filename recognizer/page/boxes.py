@@ -305,16 +305,16 @@ def _even_heights(fields: list[tuple[list[Rect], tuple[str, ...]]]) -> list[tupl
     shares, to the median height of those fields (widths within 10 %, the
     shared edge within 12 % of their height, the field under 85 % of it).
     """
+    shapes = [(float(np.median([b.w for b in boxes])), min(b.y0 for b in boxes), max(b.y1 for b in boxes))
+              for boxes, _ in fields]  # (box width, top, bottom) of each field
     out = []
-    for boxes, doubts in fields:
-        width = float(np.median([b.w for b in boxes]))
-        top, bottom = min(b.y0 for b in boxes), max(b.y1 for b in boxes)
+    for i, (boxes, doubts) in enumerate(fields):
+        width, top, bottom = shapes[i]
         height = bottom - top
         below, above = [], []  # heights of the other fields sharing the bottom, the top
-        for others, _ in fields:
-            if others is boxes or abs(float(np.median([b.w for b in others])) - width) > _SAME_WIDTH * width:
+        for j, (o_width, o_top, o_bottom) in enumerate(shapes):
+            if j == i or abs(o_width - width) > _SAME_WIDTH * width:
                 continue
-            o_top, o_bottom = min(b.y0 for b in others), max(b.y1 for b in others)
             o_height = o_bottom - o_top
             if abs(o_bottom - bottom) <= _SAME_EDGE * o_height:
                 below.append(o_height)
