@@ -11,7 +11,9 @@ never replaces an existing file, then the folder is synced. Whoever calls
 :func:`build_in_place` holds the batch's writer lock
 (:mod:`recognizer.batch.lock`), so two Inkcounts never build the same batch at
 once (the second is told it is in use), and temporary files of the batch found
-while building are those of a creator that died: they are removed. A program
+while building, or on any later opening for writing, are those of a creator that died: they are
+removed (:func:`remove_dead_temporaries`; a creator killed after linking the batch into place
+leaves its temporary name beside a whole batch). A program
 killed at any moment therefore leaves no batch or a complete one, never a
 half-made file under the batch's name.
 
@@ -52,6 +54,7 @@ __all__ = [
     "leftover",
     "lock_for_writing",
     "migrate",
+    "remove_dead_temporaries",
     "side_size",
     "worth_a_look",
 ]
@@ -215,6 +218,15 @@ def leftover(path: Path) -> bool:
         return False
 
 
+def remove_dead_temporaries(path: Path) -> None:
+    """Remove the temporary files of batch ``path`` (``.<name>.<random>.creating`` and their SQLite
+    side files). Call with the batch's writer lock held: a live creator holds it while building, so
+    the files found are those of a creator that died (before building, or after linking the batch
+    into place and before removing its temporary name)."""
+    for dead in path.parent.glob(glob.escape(f".{path.name}.") + "*" + _CREATING + "*"):
+        dead.unlink(missing_ok=True)
+
+
 def build_in_place(path: Path, *, replace: bool, settings: dict[str, Any]) -> None:
     """Build a new batch under a temporary name beside ``path`` and move it there: linked, so that
     it never replaces a file (``replace``: over a file :func:`leftover` found empty). The writer
@@ -225,8 +237,7 @@ def build_in_place(path: Path, *, replace: bool, settings: dict[str, Any]) -> No
             raise BatchFileError(path, f"'{side.name}', left by an earlier batch of that name, lies beside it; "
                                  "move it away first")
         side.unlink(missing_ok=True)
-    for dead in path.parent.glob(glob.escape(f".{path.name}.") + "*" + _CREATING + "*"):
-        dead.unlink(missing_ok=True)
+    remove_dead_temporaries(path)
     temp = path.with_name(f".{path.name}.{secrets.token_hex(6)}{_CREATING}")
     try:
         conn = sqlite3.connect(temp, isolation_level=None)

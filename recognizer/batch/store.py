@@ -76,7 +76,7 @@ from recognizer.batch.images import (
 )
 from recognizer.batch.opening import (
     APPLICATION_ID, FORMAT_NAME, BatchFileError, BatchInUseError, build_in_place, check_header, check_ours, connect,
-    leftover, lock_for_writing, worth_a_look,
+    leftover, lock_for_writing, remove_dead_temporaries, worth_a_look,
 )
 from recognizer.batch.lock import WriterLock
 from recognizer.digits.model import DigitModel, timestamp
@@ -240,6 +240,7 @@ class Batch:
                 build_in_place(path, replace=False, settings={'flag_rule': FLAG_RULE})
             elif fresh:
                 raise BatchFileError(path, "a file of that name already exists")
+            remove_dead_temporaries(path)
             check_header(path)
             conn = connect(path, read_only=False)
             check_ours(conn, path, read_only=False)

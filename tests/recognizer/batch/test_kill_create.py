@@ -65,6 +65,20 @@ def test_a_kill_while_creating_leaves_no_batch_or_a_whole_one(tmp_path: Path, ca
     assert len(outcomes) == len(DELAYS_MS)
 
 
+def test_a_creator_killed_after_linking_leaves_a_whole_batch_whose_next_opening_clears_its_temporary_name(
+        tmp_path: Path) -> None:
+    # the moment between linking the new batch into place and removing its temporary name, made at will
+    path = tmp_path / "new.inkcount"
+    Batch.open(path, create=True).close()
+    dead = tmp_path / ".new.inkcount.0123456789ab.creating"
+    dead.write_bytes(path.read_bytes())
+    with Batch.open(path, read_only=True):
+        assert _temporary_files(tmp_path) == [dead.name]  # a reader changes nothing
+    with Batch.open(path) as batch:
+        add_page(batch, "a.png")
+    assert _temporary_files(tmp_path) == []
+
+
 def test_two_creators_at_once_one_wins_and_the_other_is_told_it_is_in_use(tmp_path: Path) -> None:
     path = tmp_path / "new.inkcount"
     go = tmp_path / "go"
