@@ -12,8 +12,12 @@ Targets: ratio at most 2 with 1 worker (issue 14; 3 at worst), peak memory
 under 600 MB for the 50 pages. ``inkcount read`` includes its start (imports,
 the model, about 0.5 s), which weighs less the more pages are read.
 
-To see where the time of a page goes: ``python -m cProfile -s tottime -m
-recognizer.cli read FOLDER --out values.csv -q`` on the kept pages.
+With 1 worker two threads share the work: one decodes the next page and
+works out its lighting (:func:`recognizer.page.boxes.prepare_page`), the
+other finds the boxes of this page, cuts its cells and reads them. To see
+where the time of a page goes: ``python -m cProfile -s tottime -m
+recognizer.cli read FOLDER --out values.csv -q`` on the kept pages (the
+profile shows the reading thread only).
 
 Machines here are shared and noisy: compare the ratios from one run, not
 seconds across runs.
@@ -36,6 +40,7 @@ import numpy as np
 
 from recognizer.synth import forms as formgen
 from recognizer.synth.handwriting import Writer
+from recognizer.reading.memory import reuse_freed_blocks
 from recognizer.scans.files import iter_pages, list_scans
 
 
@@ -51,6 +56,7 @@ def make_pages(folder: Path, n: int, dpi: int) -> None:
 
 
 def time_decode(folder: Path) -> float:
+    reuse_freed_blocks()  # the allocator setting of every read (recognizer.reading.memory), for a fair ratio
     files, _ = list_scans([folder])
     start = time.perf_counter()
     for page in iter_pages(files):

@@ -101,11 +101,6 @@ class _Reference:
     pitch: float
 
 
-def _aligned(a: Rect, b: Rect) -> bool:
-    tol = _ALIGN * max(a.h, b.h)
-    return abs(a.y0 - b.y0) <= tol and abs(a.y1 - b.y1) <= tol
-
-
 def _lines_continue(lines: np.ndarray, a: Rect, b: Rect, band: int) -> bool:
     """Whether traces of the top and the bottom line run across the gap from ``a`` to ``b``."""
     return ruled(lines, a.x1, b.x0, min(a.y0, b.y0), max(a.y1, b.y1), band, _LINES_RUN_ON)
@@ -120,12 +115,17 @@ def _chains(rects: list[Rect], lines: np.ndarray, band: int) -> list[list[Rect]]
     """
     order = sorted(rects, key=lambda r: r.x0)
     nxt: dict[int, int] = {}
+    x0s, y0s, y1s, hs = (np.array([getattr(r, k) for r in order], np.int64).reshape(-1)
+                         for k in ("x0", "y0", "y1", "h"))
     for i, a in enumerate(order):
-        right = [j for j in range(i + 1, len(order))
-                 if order[j].x0 >= a.x1 - 1 and _aligned(a, order[j])]
-        if not right:
+        # the regions after ``a`` that start right of it, aligned with it (top and bottom within
+        # _ALIGN of the taller height), all at once
+        tol = _ALIGN * np.maximum(a.h, hs[i + 1:])
+        right = np.flatnonzero((x0s[i + 1:] >= a.x1 - 1) & (np.abs(a.y0 - y0s[i + 1:]) <= tol)
+                               & (np.abs(a.y1 - y1s[i + 1:]) <= tol))
+        if not right.size:
             continue
-        j = min(right, key=lambda k: order[k].x0)
+        j = i + 1 + int(right[np.argmin(x0s[i + 1:][right])])
         b = order[j]
         gap = b.x0 - a.x1
         if j not in nxt.values() and (gap <= _MAX_GAP * min(a.h, b.h) or (

@@ -14,8 +14,9 @@ there are scaled back to the page's resolution):
 
 1. the page-level steps of :mod:`recognizer.page.ruling`: uneven lighting
    divided out, ink, the skew measured and removed (the page is rotated back
-   about its centre), the straight horizontal printed lines, and the regions
-   between two lines and two walls;
+   about its centre: the working copy at once, the page itself only when
+   asked for, :attr:`BoxFinding.image`), the straight horizontal printed
+   lines, and the regions between two lines and two walls;
 2. :mod:`recognizer.page.box_rows`: which regions are digit boxes -- chains of
    regions fitted as rows of equal boxes, checked, with doubts about fields
    whose boxes were added beyond their ends.  Closed boxes side by side,
@@ -61,7 +62,8 @@ import numpy as np
 from recognizer.page import box_rows, combs, ruling
 from recognizer.page.ruling import Rect
 
-__all__ = ["MM_PER_INCH", "Box", "FieldBoxes", "BoxFinding", "as_gray_page", "find_fields", "warp_like"]
+__all__ = ["MM_PER_INCH", "Box", "FieldBoxes", "BoxFinding", "PreparedPage", "as_gray_page", "find_fields",
+           "prepare_page", "warp_like"]
 
 
 MM_PER_INCH = 25.4
@@ -117,6 +119,10 @@ class BoxFinding:
     ----------
     image : numpy.ndarray
         (M, N) uint8 deskewed page, 0 = ink; all box coordinates refer to it.
+        Given as None with ``page`` set, it is made from ``page`` and
+        ``transform`` when first asked for (reading a page only cuts its
+        boxes, :func:`recognizer.page.cells.cut_cells` with ``transform``, and
+        never needs the whole page turned).
     dpi : float
         Resolution of ``image``.
     skew_deg : float
@@ -132,18 +138,33 @@ class BoxFinding:
     transform : numpy.ndarray
         (2, 3) float64 affine map from page coordinates to ``image``
         coordinates (pixel edges).
+    page : numpy.ndarray or None
+        The page as given (before deskewing), when ``image`` is made from it
+        on demand; ``image`` then has its size.
     """
 
-    image: np.ndarray
+    image: np.ndarray | None
     dpi: float
     skew_deg: float
     fields: list[FieldBoxes] = field(default_factory=list)
     problem: str | None = None
     warnings: list[str] = field(default_factory=list)  # about the whole page
     transform: np.ndarray = field(default_factory=lambda: np.eye(2, 3), repr=False)
+    page: np.ndarray | None = field(default=None, repr=False)
 
     def __bool__(self) -> bool:
         return self.problem is None
+
+    @property
+    def deskewed(self) -> bool:
+        """Whether ``image`` is the page turned (False: ``image`` is ``page`` itself)."""
+        return not np.allclose(self.transform, np.eye(2, 3))
+
+    def cells_source(self) -> tuple[np.ndarray, np.ndarray | None]:
+        """What to cut the boxes from: ``(image, None)``, or ``(page, transform)`` while ``image`` is not made."""
+        if self._image is None and self.page is not None:
+            return self.page, self.transform
+        return self.image, None
 
     def to_page(self, x, y):
         """Map deskewed-image coordinates ``(x, y)`` (scalars or arrays) to page coordinates."""
@@ -153,6 +174,20 @@ class BoxFinding:
     def from_page(self, x, y):
         """Map page coordinates ``(x, y)`` (scalars or arrays) to deskewed-image coordinates."""
         return _apply(self.transform, x, y)
+
+
+def _image(self: BoxFinding) -> np.ndarray:
+    if self._image is None and self.page is not None:
+        self._image = ruling.warp(self.page, self.transform) if self.deskewed else self.page
+    return self._image
+
+
+def _set_image(self: BoxFinding, value: np.ndarray | None) -> None:
+    self._image = value
+
+
+# ``image`` (a dataclass field) is read through this property: made from ``page`` on first use.
+BoxFinding.image = property(_image, _set_image, doc="The deskewed page (see the class notes).")  # type: ignore[assignment]
 
 
 #: The problem of a page on which no digit boxes were found.
@@ -220,8 +255,64 @@ def _positive(value: float, name: str) -> float:
     return value
 
 
+@dataclass
+class PreparedPage:
+    """The first steps of :func:`find_fields` on one page: working resolution, lighting and ink level.
+
+    Made by :func:`prepare_page`, so that a reader can take them on another
+    thread (the one decoding the next page) and hand them to
+    :func:`find_fields`. ``problem`` is set (and ``flat`` None) for a page
+    too small or blank; ``flat`` is the page at the working resolution with
+    the lighting divided out, ``scale`` that resolution over the page's,
+    ``paper`` its paper level and ``ink_step`` the darkening that counts as
+    ink (:func:`recognizer.page.ruling.ink_step`). The skew is measured by
+    :func:`find_fields` itself: on two cores that balances the two threads
+    of a one-process read (``bench/bench_read.py``).
+    """
+
+    page: np.ndarray
+    dpi: float
+    min_box_mm: float
+    max_skew_deg: float
+    problem: str | None = None
+    flat: np.ndarray | None = field(default=None, repr=False)
+    scale: float = 1.0
+    paper: float = 0.0
+    ink_step: float = 0.0
+
+
+def prepare_page(page: np.ndarray, *, dpi: float, min_box_mm: float = 3.5,
+                 max_skew_deg: float = 5.0) -> PreparedPage:
+    """The page-level first steps of :func:`find_fields` (same parameters); see :class:`PreparedPage`."""
+    gray = as_gray_page(page)
+    dpi = _positive(dpi, "dpi")
+    min_box_mm = _positive(min_box_mm, "min_box_mm")
+    max_skew_deg = float(max_skew_deg)
+    if not 0 <= max_skew_deg <= 45:
+        raise ValueError(f"max_skew_deg must lie in 0..45, got {max_skew_deg}")
+    prepared = PreparedPage(gray, dpi, min_box_mm, max_skew_deg)
+    px_per_mm = dpi / MM_PER_INCH
+    if min(gray.shape) < 2 * min_box_mm * px_per_mm:
+        prepared.problem = (f"the image ({gray.shape[1]} x {gray.shape[0]} px at {dpi:g} dpi) is too small "
+                            "to hold digit boxes")
+        return prepared
+    # Everything but the deskewed page itself is worked out at no more than
+    # _WORK_DPI; boxes found there are scaled back to the page.
+    scale = min(1.0, _WORK_DPI / dpi)
+    small = gray if scale == 1.0 else cv2.resize(gray, None, fx=scale, fy=scale, interpolation=cv2.INTER_AREA)
+    work_px_per_mm = px_per_mm * scale
+    flat = ruling.flatten_lighting(small, work_px_per_mm)
+    paper, ink_step = ruling.ink_step(flat)
+    if ink_step is None:
+        prepared.problem = "the page is blank (no ink found)"
+        return prepared
+    prepared.flat, prepared.scale, prepared.paper, prepared.ink_step = flat, scale, paper, ink_step
+    return prepared
+
+
 def find_fields(page: np.ndarray, *, dpi: float, min_box_mm: float = 3.5,
-                max_box_mm: float = 15.0, max_skew_deg: float = 5.0) -> BoxFinding:
+                max_box_mm: float = 15.0, max_skew_deg: float = 5.0,
+                prepared: PreparedPage | None = None) -> BoxFinding:
     """Find the digit fields on a page.
 
     Parameters
@@ -235,6 +326,9 @@ def find_fields(page: np.ndarray, *, dpi: float, min_box_mm: float = 3.5,
         Smallest and largest inner side of a digit box, in mm.
     max_skew_deg : float
         Largest skew searched, degrees either way.
+    prepared : PreparedPage, optional
+        :func:`prepare_page` of this very ``page`` with these parameters,
+        already made (on another thread); made here otherwise.
 
     Returns
     -------
@@ -242,53 +336,41 @@ def find_fields(page: np.ndarray, *, dpi: float, min_box_mm: float = 3.5,
         Falsy, with ``problem`` set, when the page is blank, too small or
         holds no digit boxes.  Never raises on odd page content.
     """
-    gray = as_gray_page(page)
-    dpi = _positive(dpi, "dpi")
     min_box_mm = _positive(min_box_mm, "min_box_mm")
     max_box_mm = _positive(max_box_mm, "max_box_mm")
     if max_box_mm <= min_box_mm:
         raise ValueError(f"max_box_mm ({max_box_mm}) must exceed min_box_mm ({min_box_mm})")
-    max_skew_deg = float(max_skew_deg)
-    if not 0 <= max_skew_deg <= 45:
-        raise ValueError(f"max_skew_deg must lie in 0..45, got {max_skew_deg}")
-
-    px_per_mm = dpi / MM_PER_INCH
-    if min(gray.shape) < 2 * min_box_mm * px_per_mm:
-        return BoxFinding(gray, dpi, 0.0, problem=(
-            f"the image ({gray.shape[1]} x {gray.shape[0]} px at {dpi:g} dpi) is too small "
-            "to hold digit boxes"))
-    # Everything but the deskewed page itself is worked out at no more than
-    # _WORK_DPI; boxes found there are scaled back to the page.
-    scale = min(1.0, _WORK_DPI / dpi)
-    small = gray if scale == 1.0 else cv2.resize(gray, None, fx=scale, fy=scale, interpolation=cv2.INTER_AREA)
-    work_px_per_mm = px_per_mm * scale
-    flat = ruling.flatten_lighting(small, work_px_per_mm)
-    paper, ink_step = ruling.ink_step(flat)
-    if ink_step is None:
-        return BoxFinding(gray, dpi, 0.0, problem="the page is blank (no ink found)")
-
-    found_skew = ruling.estimate_skew(flat, paper - ink_step, work_px_per_mm, max_skew_deg)
+    if prepared is None:
+        prepared = prepare_page(page, dpi=dpi, min_box_mm=min_box_mm, max_skew_deg=max_skew_deg)
+    elif (prepared.page.shape != np.shape(page)[:2] or prepared.dpi != float(dpi)
+          or prepared.min_box_mm != min_box_mm or prepared.max_skew_deg != float(max_skew_deg)):
+        raise ValueError("prepared was made from another page or with other settings")
+    gray, dpi = prepared.page, prepared.dpi
+    if prepared.problem is not None:
+        return BoxFinding(gray, dpi, 0.0, problem=prepared.problem)
+    assert prepared.flat is not None
+    work_px_per_mm = dpi / MM_PER_INCH * prepared.scale
+    flat, max_skew_deg = prepared.flat, prepared.max_skew_deg
+    found_skew = ruling.estimate_skew(flat, prepared.paper - prepared.ink_step, work_px_per_mm, max_skew_deg)
     skew = float(np.clip(found_skew, -max_skew_deg, max_skew_deg))
     transform = np.eye(2, 3)
-    if abs(skew) >= 0.02:
+    if abs(skew) >= 0.02:  # the page itself is turned only if someone asks for it (BoxFinding.image)
         transform = ruling.rotation(gray.shape, -skew)
-        gray = ruling.warp(gray, transform)
         flat = ruling.warp(flat, ruling.rotation(flat.shape, -skew))
-
-    ink = ruling.ink_mask(flat, paper - ink_step, work_px_per_mm)
+    ink = ruling.ink_mask(flat, prepared.paper - prepared.ink_step, work_px_per_mm)
     lines = ruling.horizontal_lines(ink, work_px_per_mm, min_box_mm)
     segments = ruling.line_segments(lines, work_px_per_mm, min_box_mm)  # once, for both kinds of comb
     rects = ruling.regions(ink, lines, work_px_per_mm, min_box_mm, max_box_mm, segments=segments)
     fields = box_rows.fit_fields(rects, lines, ink, work_px_per_mm, min_box_mm, max_box_mm)
     fields = combs.add_open_combs(fields, ink, lines, work_px_per_mm, min_box_mm, max_box_mm,
                                   segments=segments)
-    finding = BoxFinding(gray, dpi, skew, transform=transform)
+    finding = BoxFinding(None, dpi, skew, transform=transform, page=gray)
     if not fields:
         finding.problem = NO_BOXES
         return finding
     fields = _even_heights(fields)
-    finding.fields = _name_fields([([_scale_box(b, 1.0 / scale) for b in f], d) for f, d in fields])
-    finding.warnings = ruling.line_warnings(flat, lines, paper)
+    finding.fields = _name_fields([([_scale_box(b, 1.0 / prepared.scale) for b in f], d) for f, d in fields])
+    finding.warnings = ruling.line_warnings(flat, lines, prepared.paper)
     if abs(found_skew) > max_skew_deg + 0.1:
         finding.warnings.append(f"the page may be skewed by more than {max_skew_deg:g} degrees")
     return finding

@@ -152,8 +152,12 @@ def _pitch(ticks: list[tuple[int, int]], lo: float, hi: float) -> float | None:
     votes = near.sum(axis=1) + twice.sum(axis=1)
     best, best_score = None, -np.inf
     tried: list[float] = []
+    medians: dict[bytes, float] = {}  # candidates with the same near steps have the same median
     for i in np.argsort(-votes - 1e-3 * steps, kind="stable"):
-        pitch = float(np.median(steps[near[i]]))
+        key = np.packbits(near[i]).tobytes()
+        if key not in medians:
+            medians[key] = float(np.median(steps[near[i]]))
+        pitch = medians[key]
         if any(abs(pitch - t) <= _PITCH_TOL * t for t in tried):
             continue
         tried.append(pitch)

@@ -55,6 +55,7 @@ from recognizer import __version__
 from recognizer.digits.model import DigitModel, load_model
 from recognizer.forms.template import Template
 from recognizer.forms.template_file import load_template
+from recognizer.reading.memory import reuse_freed_blocks
 from recognizer.reading.page import PageRead, PageReader, read_or_problem
 from recognizer.scans.files import ScanProblem, load_page
 
@@ -228,6 +229,7 @@ def _reader_for(spec: _ReaderSpec) -> PageReader:
             raise _VersionMismatch(f"a Dask worker runs Inkcount {__version__}, this computer {spec.version}: "
                                    "install the same version on every machine")
         _one_opencv_thread()
+        reuse_freed_blocks()
         _worker_reader = (spec, PageReader(spec.model, keep_image=spec.keep_image, templates=spec.templates))
     return _worker_reader[1]
 

@@ -25,7 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
-from recognizer.page.boxes import NO_BOXES, Box, BoxFinding, find_fields, warp_like
+from recognizer.page.boxes import NO_BOXES, Box, BoxFinding, PreparedPage, find_fields, prepare_page, warp_like
 from recognizer.page.dropout import DropoutLayers, split_dropout
 from recognizer.page.cells import Cell, cut_cells
 from recognizer.page.loose_ink import loose_numbers
@@ -249,15 +249,28 @@ class PageReader:
         self.keep_image = keep_image
         self.registrars = [Registrar(t) for t in templates]
 
-    def read(self, page: Page) -> PageRead:
+    def prepare(self, page: Page) -> PreparedPage | None:
+        """The first steps of reading ``page`` that can be taken on another thread, or None.
+
+        A page read without templates and in grey has its working resolution,
+        lighting and ink level worked out here (:func:`recognizer.page.boxes.prepare_page`);
+        :meth:`read` takes them as ``prepared``. One-process reading prepares
+        the next page on the thread that decodes it.
+        """
+        if self.registrars or page.colour is not None:
+            return None
+        return prepare_page(page.image, dpi=page.dpi)
+
+    def read(self, page: Page, *, prepared: PreparedPage | None = None) -> PageRead:
         """Read one page; never raises on odd page content.
 
+        ``prepared`` is :meth:`prepare` of this page, when already made.
         Without templates, a page whose digits read doubtfully is read again
         turned by 180 degrees, and the turned reading is kept when it is
         clearly surer (:mod:`recognizer.reading.orientation`); a template's
         registration turns an upside-down page by itself.
         """
-        read = self._read_as_is(page)
+        read = self._read_as_is(page, prepared)
         if self.registrars or not read:
             return read
         confidences = [d.confidence for f in read.fields for d in f.digits if d.text]
@@ -271,14 +284,14 @@ class PageReader:
             return turned
         return read
 
-    def _read_as_is(self, page: Page) -> PageRead:
+    def _read_as_is(self, page: Page, prepared: PreparedPage | None = None) -> PageRead:
         layers = split_dropout(page.colour) if page.colour is not None else None
         if self.registrars:
             read = self._read_with_template(page)
         elif layers is not None:
             read = self._read_dropout(page, layers)
         else:
-            finding = find_fields(page.image, dpi=page.dpi)
+            finding = find_fields(page.image, dpi=page.dpi, prepared=prepared)
             if _bitonal(page.image):
                 if finding.problem == NO_BOXES:
                     finding.problem = BOXES_NOT_VISIBLE
@@ -334,8 +347,9 @@ class PageReader:
                 source, page, finding.dpi, finding.skew_deg, [],
                 problem=finding.problem, warnings=list(finding.warnings), image=image,
             )
+        cut_from, transform = finding.cells_source() if ink is None else (ink, None)
         per_field: list[list[Cell]] = [
-            cut_cells(finding.image if ink is None else ink, f.boxes, dpi=finding.dpi) for f in finding.fields
+            cut_cells(cut_from, f.boxes, dpi=finding.dpi, transform=transform) for f in finding.fields
         ]
         written = [c.mnist for cells in per_field for c in cells if not c.blank]
         probs = (
@@ -363,13 +377,13 @@ class PageReader:
         )
 
 
-def read_or_problem(reader: PageReader, page: Page) -> PageRead | ScanProblem:
-    """``reader.read(page)``, an error of the reader on this page made its problem line.
+def read_or_problem(reader: PageReader, page: Page, prepared: PreparedPage | None = None) -> PageRead | ScanProblem:
+    """``reader.read(page, prepared=prepared)``, an error of the reader on this page made its problem line.
 
     Every way of reading (one process, a pool, a Dask cluster) reads a page
     through this guard, so a bug met on an odd page does not stop the batch.
     """
     try:
-        return reader.read(page)
+        return reader.read(page, prepared=prepared)
     except Exception as exc:  # a bug met on an odd page must not stop the batch
         return ScanProblem(page.source, page.page, program_error_words(exc))

@@ -32,6 +32,8 @@ from queue import Empty, Full, Queue
 from pathlib import Path
 
 from recognizer.digits.model import DigitModel, load_model
+from recognizer.page.boxes import PreparedPage
+from recognizer.reading.memory import reuse_freed_blocks
 from recognizer.reading.page import PageRead, PageReader, read_or_problem
 from recognizer.scans.files import DEFAULT_MAX_PIXELS, DEFAULT_PDF_DPI, Page, ScanProblem, count_pages, iter_pages, load_page
 from recognizer.scans.limits import MAX_PAGE_PROBLEMS_PER_FILE
@@ -119,6 +121,7 @@ def read_scans(
     """
     if workers < 1:
         raise ValueError(f"workers must be at least 1, got {workers}")
+    reuse_freed_blocks()
     if settings.cluster:
         from recognizer.reading.cluster import read_on_cluster  # Dask only when asked for
 
@@ -135,15 +138,37 @@ def read_scans(
                 else load_page(job.source, job.page, pdf_dpi=settings.pdf_dpi, max_pixels=settings.max_pixels)
                 for job in page_jobs(files, max_pixels=settings.max_pixels, skip=skip)
             )
-        for item in _decoded_ahead(pages):
-            yield item if isinstance(item, ScanProblem) else _read_page(reader, item)
+        for item in _decoded_ahead(_prepared(pages, reader)):
+            yield item if isinstance(item, ScanProblem) else _read_page(reader, *item)
         return
     yield from _few_problems_per_file(_read_in_pool(files, settings, workers, skip))
 
 
-def _read_page(reader: PageReader, page: Page) -> PageRead | ScanProblem:
+def _read_page(reader: PageReader, page: Page, prepared: PreparedPage | None = None) -> PageRead | ScanProblem:
     """``reader.read(page)``, an error of the reader on this page made its problem line."""
-    return read_or_problem(reader, page)
+    return read_or_problem(reader, page, prepared)
+
+
+def _prepared(pages: Iterator[Page | ScanProblem], reader: PageReader
+              ) -> Iterator[tuple[Page, PreparedPage | None] | ScanProblem]:
+    """Each page with :meth:`PageReader.prepare` of it (run where this is iterated: the decoding thread).
+
+    An error while preparing leaves the page unprepared: the reader then
+    meets it again on this page alone, where it becomes the page's problem.
+    """
+    try:
+        for item in pages:
+            if isinstance(item, ScanProblem):
+                yield item
+                continue
+            try:
+                prepared = reader.prepare(item)
+            except Exception:  # met again by reader.read, on this page alone
+                prepared = None
+            yield item, prepared
+    finally:
+        if hasattr(pages, "close"):
+            pages.close()
 
 
 def _few_problems_per_file(results: Iterable) -> Iterator:
@@ -181,12 +206,13 @@ def _few_problems_per_file(results: Iterable) -> Iterator:
             results.close()
 
 
-def _decoded_ahead(pages: Iterator[Page | ScanProblem], depth: int = 1) -> Iterator[Page | ScanProblem]:
-    """Yield from ``pages`` while a thread decodes the next ``depth`` pages.
+def _decoded_ahead(pages: Iterator, depth: int = 1) -> Iterator:
+    """Yield from ``pages`` while a thread decodes (and prepares, :func:`_prepared`) the next ``depth`` pages.
 
     Decoding (Pillow, pypdfium2) and reading (OpenCV, numpy) both release the
     interpreter lock for most of their work, so on two cores the next page is
-    decoded while this one is read. At most ``depth + 1`` pages are held. An
+    decoded and its lighting worked out while this one is read
+    (``bench/bench_read.py``). At most ``depth + 1`` pages are held. An
     exception met while decoding is raised here, in the caller's thread; when
     the caller stops early the thread stops too.
     """
@@ -250,6 +276,7 @@ def _init_worker(settings: ReadSettings) -> None:
     import cv2
 
     cv2.setNumThreads(1)  # one page at a time on one core per worker process
+    reuse_freed_blocks()
     _worker_settings = settings
     _worker_reader = _reader(load_model(settings.model_path), settings)
 

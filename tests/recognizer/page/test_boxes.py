@@ -241,3 +241,44 @@ def test_to_page_inverts_from_page():
     assert_allclose(finding.to_page(u, v), (x, y), atol=1e-9)
     px, py = finding.to_page(100.0, 200.0)
     assert isinstance(px, float) and isinstance(py, float)
+
+
+@pytest.mark.parametrize("rows_cut", [0, 1])  # 1169 rows, then 1168
+@pytest.mark.parametrize("skew", [0.15, -0.5])
+def test_skew_is_found_whatever_the_parity_of_the_page_height(skew, rows_cut):
+    """The skew search centres the ink's coordinates on the page. On an odd number of rows
+    they were half-way between two rows and all rounded one way at 0 degrees (half to
+    even), which paired rows, faked a sharp profile at 0 and hid small skews: 0.0 was found
+    for both skews at 1169 rows before the fix."""
+    from recognizer.page import ruling
+
+    rng = np.random.default_rng(3)
+    layout = fg.bench_page()
+    form = fg.render_form(layout, fg.random_values(layout, rng=rng), dpi=100, rng=rng)
+    image = fg.scan_distort(form, rng=rng, skew_deg=skew, noise=0.3).image
+    image = image[:image.shape[0] - rows_cut]
+    px_per_mm = 100 / 25.4  # searched at the page's own size
+    flat = ruling.flatten_lighting(image, px_per_mm)
+    paper, step = ruling.ink_step(flat)
+    assert ruling.estimate_skew(flat, paper - step, px_per_mm, 5.0) == pytest.approx(skew, abs=0.06)
+
+
+def test_a_prepared_page_finds_the_fields_of_the_page_alone():
+    """prepare_page (taken on the decoding thread by one-process reading) then find_fields
+    gives what find_fields gives on its own; a preparation of another page is refused."""
+    from recognizer.page.boxes import prepare_page
+
+    layout = fg.orchard_card()
+    scan = _scan(layout, dpi=300, seed=4, skew_deg=1.2, noise=0.3)
+    alone = find_fields(scan.image, dpi=300)
+    prepared = prepare_page(scan.image, dpi=300)
+    found = find_fields(scan.image, dpi=300, prepared=prepared)
+    assert found.skew_deg == alone.skew_deg
+    assert [(f.name, f.boxes) for f in found.fields] == [(f.name, f.boxes) for f in alone.fields]
+    with pytest.raises(ValueError, match="another page"):
+        find_fields(scan.image[:-10], dpi=300, prepared=prepared)
+    with pytest.raises(ValueError, match="other settings"):
+        find_fields(scan.image, dpi=200, prepared=prepared)
+    blank = np.full((800, 600), 255, np.uint8)
+    assert find_fields(blank, dpi=150, prepared=prepare_page(blank, dpi=150)).problem == \
+        find_fields(blank, dpi=150).problem

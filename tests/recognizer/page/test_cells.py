@@ -231,3 +231,41 @@ def test_bad_arguments_raise(args, error):
     image, box, dpi = args
     with pytest.raises(error):
         cut_cell(image, box, dpi=dpi)
+
+
+def test_a_crop_turned_alone_matches_the_crop_of_the_page_turned():
+    """Reading cuts each box out of the page as scanned (``transform``) instead of turning the
+    whole page first: the cells must come out as if cut from the turned page."""
+    layout = fg.orchard_card()
+    rng = np.random.default_rng(12)
+    form = fg.render_form(layout, fg.random_values(layout, rng=rng), dpi=300, rng=rng)
+    scan = fg.scan_distort(form, rng=rng, skew_deg=-2.2, noise=0.3)
+    finding = find_fields(scan.image, dpi=300)
+    page, transform = finding.cells_source()
+    assert page is scan.image or np.array_equal(page, scan.image)
+    assert transform is not None and finding.deskewed
+    boxes = [b for f in finding.fields for b in f.boxes]
+    alone = cut_cells(page, boxes, dpi=300, transform=transform)
+    turned = cut_cells(finding.image, boxes, dpi=300)  # the whole page turned, on first use
+    assert finding.cells_source()[1] is None  # once made, the turned page is used
+    for a, b in zip(alone, turned):
+        assert a.crop.shape == b.crop.shape
+        assert np.abs(a.crop.astype(int) - b.crop).max() <= 2  # fixed-point rounding of OpenCV's warp
+        assert a.blank == b.blank
+        if not a.blank:
+            assert np.abs(a.mnist - b.mnist).max() < 0.1
+
+
+def test_ink_levels_from_the_histogram_equal_numpy_percentiles():
+    """The paper level and noise of a crop are taken from its histogram: the same figures as
+    ``np.percentile`` (linear interpolation) and ``np.median``."""
+    from recognizer.page.cells import _median_distance, _percentile
+
+    rng = np.random.default_rng(5)
+    for n in (1, 2, 3, 10, 257, 4000):
+        values = np.clip(rng.normal(200, 40, n), 0, 255).astype(np.uint8)
+        hist = np.bincount(values, minlength=256)
+        for q in (0, 25, 40, 50, 75, 90, 100):
+            assert _percentile(hist, q) == pytest.approx(np.percentile(values.astype(np.float32), q), abs=1e-4)
+        centre = float(np.median(values))
+        assert _median_distance(hist, centre) == pytest.approx(float(np.median(np.abs(values - centre))))
