@@ -114,8 +114,24 @@ def _cluster_start_seconds() -> float:
     return float(out.strip().splitlines()[-1])
 
 
+def _names(files: list[Path], n: int, folder: Path) -> list[str]:
+    """``n`` file names for the distinct ``files`` listed again and again: the same path twice is
+    read once (``list_scans``), so each is another name of its file (a hard link, else a copy)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    names = []
+    for i in range(n):
+        source, name = files[i % len(files)], folder / f"page{i + 1:05d}{files[i % len(files)].suffix}"
+        if not name.exists():
+            try:
+                os.link(source, name)
+            except OSError:
+                shutil.copyfile(source, name)
+        names.append(str(name))
+    return names
+
+
 def speed(files: list[Path], n: int, folder: Path) -> None:
-    listed = [str(files[i % len(files)]) for i in range(n)]
+    listed = _names(files, n, folder / "listed")
     one, pool, dask = folder / "one.csv", folder / "pool.csv", folder / "dask.csv"
     t1 = _timed([*listed, "--out", str(one)])
     t_pool = _timed([*listed, "--out", str(pool), "--workers", "2"])

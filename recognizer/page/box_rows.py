@@ -39,9 +39,13 @@ Rules
   stand where they should.
 * *Ends*: a field grows by up to two boxes at each end where the top and
   bottom lines run on over a box and a wall trace stands at its outer edge.
-* *Checks*: lines must cover 70 % of a field's top and bottom edges; fields
-  are kept in order of their count of well-formed boxes and may not overlap a
-  field kept before.
+* *Checks*: lines must cover 70 % of a field's top and bottom edges; a
+  field of three or more boxes must have at least half of them *seen* (half
+  of the box covered by regions at most two pitches wide: a region wider
+  than that is a table cell or a label's band, and a row laid over a table's
+  row with one box-sized cell in it is no field); fields are kept in order
+  of their count of well-formed boxes and may not overlap a field kept
+  before.
 * *Small fields*: a field of one or two boxes is kept only when its boxes'
   width and height are within 25 % of the median box of the page's fields of
   three or more boxes (of all boxes if there are none): a lone tick box of a
@@ -75,6 +79,7 @@ _MAX_EXTEND = 2            # boxes added at most at each end of a field
 _SAME_WIDTH = 0.1          # boxes of one field agree in width within this part
 _WALL_TRACE = 0.5          # ink share of a column that marks the trace of a broken wall
 _SMALL_FIELD = 2           # fields of at most this many boxes must have the page's box size
+_MOSTLY_PLACED = 0.5       # a longer field with more of its boxes placed than seen is no field
 _SMALL_TOLERANCE = 0.25    # ... within this part
 _PITCH_TIE = 0.02          # pitches whose centre resultant is this close to the best are tied
 _PITCH_SLACK = 0.1         # pitches tried reach this part of the width past width + largest gap
@@ -292,7 +297,9 @@ def _fit_field(part: list[Rect], limits: _Limits, refs: list[_Reference],
         ex0 = origin + slot * pitch
         x0 = _snap(ex0, [r.x0 for r in part], tol)
         x1 = _snap(ex0 + w, [r.x1 for r in part], tol)
-        seen = sum(max(0, min(r.x1, x1) - max(r.x0, x0)) for r in part)
+        # regions of up to two boxes (a wall lost between them) show boxes; a wider one (a table
+        # cell, a label's band) shows none
+        seen = sum(max(0, min(r.x1, x1) - max(r.x0, x0)) for r in part if r.w <= 2 * pitch + tol)
         if seen < 0.5 * w:
             placed += 1
         if not good and slot > first and not _wall_trace(ink, x0, y0, y1, tol):
@@ -330,6 +337,8 @@ def fit_fields(rects: list[Rect], lines: np.ndarray, ink: np.ndarray, px_per_mm:
     fitted = []
     for part in chains:
         boxes, n, pitch = _fit_field(part, limits, refs, ink)
+        if len(boxes) > _SMALL_FIELD and n > _MOSTLY_PLACED * len(boxes):
+            continue  # a row laid over a table's row: mostly no region of a box or two where its boxes stand
         if boxes and ruled(lines, boxes[0].x0, boxes[-1].x1, boxes[0].y0, boxes[0].y1, band,
                            _FIELD_RULED):
             fitted.append((boxes, n, pitch, sum(limits.fits(r) for r in part)))

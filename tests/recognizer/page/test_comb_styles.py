@@ -135,3 +135,23 @@ def test_a_g4_bitonal_scan_of_the_red_weigh_ticket_says_the_boxes_are_not_visibl
     fg.save_scan(fax.image, tmp_path / "ticket.tif", dpi=200, bitonal=True)
     read = PageReader(model).read(next(iter_pages([tmp_path / "ticket.tif"])))
     assert read.problem == BOXES_NOT_VISIBLE
+
+
+def test_a_table_row_is_not_taken_for_a_field_on_a_tilted_photo(tmp_path):
+    """On a strongly tilted landscape photo of the bin register (a seed of the forms bench),
+    each row of the table -- one box-sized cell ("Line") among wide ones -- was fitted as a
+    16-box field; the header row survived as a field, and its 16 large "boxes" made the
+    register's two-box Block fields look odd-sized, so all nine were dropped. A field must
+    have half of its boxes seen in regions of a box or two."""
+    layout = fg.DESIGNS["bin_register"]()
+    rng = np.random.default_rng(5005)
+    form = fg.render_form(layout, fg.random_values(layout, rng=rng), dpi=300, rng=rng)
+    photo = fg.phone_photo(form, rng=np.random.default_rng(15_005))
+    path = tmp_path / "register.jpg"
+    photo.save(path)
+    page = next(iter_pages([path]))
+    finding = find_fields(page.image, dpi=page.dpi)
+    longest = max(len(rects) for _, rects in form.truth().values())
+    assert max(len(f.boxes) for f in finding.fields) <= longest
+    pairs = sum(len(rects) == 2 for _, rects in form.truth().values())
+    assert sum(len(f.boxes) == 2 for f in finding.fields) >= pairs - 1  # a pen stroke may hide one wall
