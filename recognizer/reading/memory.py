@@ -4,10 +4,10 @@ Reading a page makes and drops a dozen arrays of the page's size (the
 decoded page, its working copy at 200 dpi, the ink and line masks ...).
 glibc hands blocks over 128 KB (at first; the bound moves) straight back to
 the system and maps them afresh for the next page, and every fresh page of
-memory is a fault the kernel must zero: about a tenth of the time of a
-one-process read of A4 pages at 300 dpi went to the system before
-(``bench/bench_read.py``; ``/usr/bin/time`` showed the system time halved
-with this, the peak memory a little lower).
+memory is a fault the kernel must zero. On the 50 pages of
+``bench/bench_read.py`` read in one process (``/usr/bin/time``), the system
+time went from 0.65-0.69 s to 0.42-0.48 s with this, the whole read from
+6.24-6.34 s to 6.04-6.05 s, and the peak memory from 170 to 168 MB.
 
 :func:`reuse_freed_blocks` asks glibc (``mallopt``) to serve blocks up to
 32 MB (an A4 page at 300 dpi is 8.7 MB) from its heap and to give the

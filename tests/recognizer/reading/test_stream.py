@@ -115,3 +115,16 @@ def test_an_error_while_preparing_leaves_the_page_to_the_reader(tmp_path, monkey
     assert [r.source.name for r in results] == ["card0.png", "card1.png", "card2.png"]
     assert all(not isinstance(r, ScanProblem) and r for r in results)  # card1 prepared again by read
     assert "inkcount-decode" not in _threads()
+
+
+def test_the_allocator_keeps_page_sized_blocks_where_it_is_glibc():
+    """Reading sets glibc's allocator to keep freed page-sized blocks (recognizer.reading.memory);
+    elsewhere it changes nothing and says so."""
+    import platform
+    import sys
+
+    from recognizer.reading.memory import reuse_freed_blocks
+
+    glibc = sys.platform.startswith("linux") and platform.libc_ver()[0] == "glibc"
+    assert reuse_freed_blocks() is glibc
+    assert reuse_freed_blocks() is glibc  # once per process; asking again changes nothing
