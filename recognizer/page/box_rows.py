@@ -120,8 +120,7 @@ def _chains(rects: list[Rect], lines: np.ndarray, band: int) -> list[list[Rect]]
     """
     order = sorted(rects, key=lambda r: r.x0)
     nxt: dict[int, int] = {}
-    x0s, y0s, y1s, hs = (np.array([getattr(r, k) for r in order], np.int64).reshape(-1)
-                         for k in ("x0", "y0", "y1", "h"))
+    x0s, y0s, y1s, hs = (np.array([getattr(r, k) for r in order], np.int64) for k in ("x0", "y0", "y1", "h"))
     for i, a in enumerate(order):
         # the regions after ``a`` that start right of it, aligned with it (top and bottom within
         # _ALIGN of the taller height), all at once

@@ -196,7 +196,7 @@ NO_BOXES = "no digit boxes found on this page"
 
 def warp_like(finding: BoxFinding, image: np.ndarray) -> np.ndarray:
     """Another image of the same page (a colour layer), deskewed as ``finding.image`` was."""
-    if np.allclose(finding.transform, np.eye(2, 3)):
+    if not finding.deskewed:
         return image
     return ruling.warp(image, finding.transform)
 

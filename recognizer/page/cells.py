@@ -38,7 +38,7 @@ import numpy as np
 
 from recognizer.digits.preprocess import to_model_input
 from recognizer.page.boxes import MM_PER_INCH, Box, _positive, as_gray_page
-from recognizer.page.ruling import median_of_counts
+from recognizer.page.ruling import median_of_counts, percentile_of_counts
 
 __all__ = ["Cell", "cut_cell", "cut_cells", "remove_box_lines", "is_blank"]
 
@@ -123,9 +123,7 @@ def cut_cell(image: np.ndarray, box: Box, *, dpi: float, transform: np.ndarray |
     darkness, mask = _ink(crop, margin, px_per_mm)
     inner = (slice(margin, margin + box.height), slice(margin, margin + box.width))
     band = max(1, int(round(_EDGE_BAND_MM * px_per_mm)))
-    lines_cleared = _clear_line_rows(mask[inner], band, _LINE_COVER)
-    edge_band = band if min(lines_cleared.shape) > 2 * band + 1 else 0  # as remove_box_lines
-    keep = _kept_blots(lines_cleared, edge_band, px_per_mm)
+    keep = _cleaned(mask[inner], band, _LINE_COVER, px_per_mm)
     ink = _grey_ink(darkness[inner], keep)
     blank = is_blank(ink, dpi=dpi)
     return Cell(crop, ink, blank, None if blank else to_model_input(ink))
@@ -158,9 +156,10 @@ def _ink(crop: np.ndarray, margin: int, px_per_mm: float) -> tuple[np.ndarray, n
     # Percentiles and medians of uint8 pixels from their histogram (the same
     # figures as np.percentile / np.median, without sorting every crop).
     hist = np.bincount(smooth[margin:-margin, margin:-margin].ravel(), minlength=256)
-    paper = _percentile(hist, _PAPER_PERCENTILE)
-    bright = np.where(np.arange(256) >= _percentile(hist, 40), hist, 0)
-    noise = 1.4826 * _median_distance(bright, _percentile(bright, 50))
+    levels = np.arange(256)
+    paper = percentile_of_counts(hist, _PAPER_PERCENTILE)
+    bright = np.where(levels >= percentile_of_counts(hist, 40), hist, 0)
+    noise = 1.4826 * median_of_counts(np.abs(levels - percentile_of_counts(bright, 50)), bright)
     darkness = np.maximum(paper - smooth.astype(np.float32), 0.0)
     step = max(_NOISE_SIGMAS * noise, _MIN_STEP)
     mask = darkness > step
@@ -171,27 +170,6 @@ def _ink(crop: np.ndarray, margin: int, px_per_mm: float) -> tuple[np.ndarray, n
         dark[0] = False
         mask = dark[labels]
     return darkness, mask
-
-
-def _value_at(cum: np.ndarray, k: np.ndarray | int) -> np.ndarray:
-    """The ``k``-th smallest value (from 0) of the values counted in ``cum`` (cumulative, one bin per value)."""
-    return np.searchsorted(cum, np.asarray(k) + 1, side="left")
-
-
-def _percentile(hist: np.ndarray, q: float) -> float:
-    """``np.percentile(values, q)`` (linear interpolation) of the integer values counted in ``hist``."""
-    cum = np.cumsum(hist)
-    at = q / 100.0 * (int(cum[-1]) - 1)
-    low = math.floor(at)
-    a, b = (float(v) for v in _value_at(cum, [low, min(low + 1, int(cum[-1]) - 1)]))
-    t = at - low
-    return a + (b - a) * t if t < 0.5 else b - (b - a) * (1 - t)
-
-
-def _median_distance(hist: np.ndarray, centre: float) -> float:
-    """``np.median(np.abs(values - centre))`` of the integer values counted in ``hist``."""
-    values = np.flatnonzero(hist)
-    return median_of_counts(np.abs(values - centre), hist[values])
 
 
 def remove_box_lines(mask: np.ndarray, *, band_px: int, coverage: float = _LINE_COVER
@@ -218,16 +196,19 @@ def remove_box_lines(mask: np.ndarray, *, band_px: int, coverage: float = _LINE_
     out = np.array(mask, bool)
     if out.ndim != 2:
         raise ValueError(f"mask must be 2-D, got shape {out.shape}")
-    band = int(band_px)
-    if band < 1 or min(out.shape) <= 2 * band + 1:
-        return out
-    return _kept_blots(_clear_line_rows(out, band, coverage), band, None)
+    return _cleaned(out, int(band_px), coverage, None)
+
+
+def _cleaned(mask: np.ndarray, band: int, coverage: float, px_per_mm: float | None) -> np.ndarray:
+    """:func:`remove_box_lines` on ``mask`` (changed in place), and given ``px_per_mm`` the specks
+    dropped too, in one labelling of the blots. A box too small for its bands keeps its lines."""
+    if band < 1 or min(mask.shape) <= 2 * band + 1:
+        return mask if px_per_mm is None else _kept_blots(mask, 0, px_per_mm)
+    return _kept_blots(_clear_line_rows(mask, band, coverage), band, px_per_mm)
 
 
 def _clear_line_rows(mask: np.ndarray, band: int, coverage: float) -> np.ndarray:
     """The line-remnant rows of :func:`remove_box_lines`, cleared in ``mask`` (changed in place)."""
-    if band < 1 or min(mask.shape) <= 2 * band + 1:
-        return mask
     # each edge in turn brought to the top: np.rot90(mask, turn) for turn 0..3, as plain views
     for view in (mask, mask.T[::-1], mask[::-1, ::-1], mask[::-1].T):
         rows = np.flatnonzero(view[:band].mean(axis=1) >= coverage)

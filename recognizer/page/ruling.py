@@ -54,6 +54,7 @@ __all__ = [
     "line_warnings",
     "max_wall_px",
     "median_of_counts",
+    "percentile_of_counts",
     "regions",
     "rotation",
     "runs",
@@ -125,6 +126,18 @@ def ink_step(flat: np.ndarray) -> tuple[float, float | None]:
     if paper - step < 10 or int(hist[levels < paper - step].sum()) < 20:
         return paper, None
     return paper, step
+
+
+def percentile_of_counts(counts: np.ndarray, q: float) -> float:
+    """``np.percentile`` (linear interpolation) of the values ``0, 1, ...`` each repeated
+    ``counts`` times (the histogram of a uint8 image, say), without sorting the values."""
+    cum = np.cumsum(counts)
+    n = int(cum[-1])
+    at = q / 100.0 * (n - 1)
+    low = math.floor(at)
+    a, b = (float(v) for v in np.searchsorted(cum, np.array([low, min(low + 1, n - 1)]) + 1, side="left"))
+    t = at - low
+    return a + (b - a) * t if t < 0.5 else b - (b - a) * (1 - t)  # as numpy interpolates
 
 
 def median_of_counts(values: np.ndarray, counts: np.ndarray) -> float:

@@ -259,7 +259,13 @@ def test_a_crop_turned_alone_matches_the_crop_of_the_page_turned():
 def test_ink_levels_from_the_histogram_equal_numpy_percentiles():
     """The paper level and noise of a crop are taken from its histogram: the same figures as
     ``np.percentile`` (linear interpolation) and ``np.median``."""
-    from recognizer.page.cells import _median_distance, _percentile
+    from recognizer.page.ruling import median_of_counts, percentile_of_counts
+
+    def _percentile(hist, q):
+        return percentile_of_counts(hist, q)
+
+    def _median_distance(hist, centre):
+        return median_of_counts(np.abs(np.arange(256) - centre), hist)
 
     rng = np.random.default_rng(5)
     for n in (1, 2, 3, 10, 257, 4000):
